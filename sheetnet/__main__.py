@@ -1,0 +1,5 @@
+"""``python -m sheetnet`` runs the command line."""
+
+from sheetnet.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,243 @@
+"""The command line: ``sheetnet train | score``.
+
+Thin by design: parse flags, call the library, print a summary. Every :class:`SheetNetError`
+becomes one line on stderr and its exit code (1 bad data, 2 bad usage); nothing else prints
+a traceback except a genuine bug.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+
+from sheetnet import __version__
+from sheetnet.errors import SheetNetError, UsageError
+from sheetnet.files import check_output, write_atomic
+from sheetnet.net import data as dataio
+from sheetnet.net.activations import Activation
+from sheetnet.net.fit import Architecture, FitOutcome, fit
+from sheetnet.net.metrics import Metrics, evaluate
+from sheetnet.net.model import load_model
+from sheetnet.net.score import score_table
+from sheetnet.net.train import TrainSettings
+from sheetnet.progress import Progress
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that raises instead of printing usage and exiting, so errors stay one line."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise UsageError(message)
+
+
+def _columns(text: str) -> tuple[str, ...]:
+    names = tuple(part.strip() for part in text.split(","))
+    if not all(names):
+        raise argparse.ArgumentTypeError(f"empty column name in {text!r}")
+    return names
+
+
+def _hidden(text: str) -> tuple[int, ...]:
+    if text.strip().lower() == "none":
+        return ()
+    try:
+        sizes = tuple(int(part) for part in text.split(","))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected sizes like 4 or 8,4 (or 'none'), got {text!r}") from None
+    if any(s < 1 for s in sizes):
+        raise argparse.ArgumentTypeError(f"every hidden layer needs at least 1 unit, got {text!r}")
+    return sizes
+
+
+def _positive(text: str) -> float:
+    value = _finite(text)
+    if value <= 0:
+        raise argparse.ArgumentTypeError(f"must be > 0, got {text!r}")
+    return value
+
+
+def _finite(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not np.isfinite(value):
+        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be >= 1, got {text!r}")
+    return value
+
+
+def _batch(text: str) -> int | None:
+    return None if text.strip().lower() == "full" else _count(text)
+
+
+def _holdout(text: str) -> float | str:
+    if text == "auto":
+        return text
+    value = _finite(text)
+    if not 0 <= value < 1:
+        raise argparse.ArgumentTypeError(f"must be a fraction in [0, 1) or 'auto', got {text!r}")
+    return value
+
+
+def add_train_flags(p: argparse.ArgumentParser) -> None:
+    """Flags shared by every command that trains."""
+    p.add_argument("data", type=Path, help="CSV file with a header row")
+    p.add_argument("--target", type=_columns, help="target column(s), comma-separated")
+    p.add_argument("--inputs", type=_columns, help="input columns (default: every other column)")
+    p.add_argument("--hidden", type=_hidden, default=(4,), help="hidden layer sizes, e.g. 8,4, or 'none'")
+    p.add_argument("--activation", choices=("sigmoid", "tanh", "relu", "identity"), default="sigmoid",
+                   help="hidden-layer activation")
+    p.add_argument("--steepness", type=_positive, default=1.0, help="sigmoid steepness s in sigma(s*(z-m))")
+    p.add_argument("--midpoint", type=_finite, default=0.0, help="sigmoid midpoint m in sigma(s*(z-m))")
+    p.add_argument("--output", choices=("auto", "sigmoid", "softmax", "identity"), default="auto")
+    p.add_argument("--loss", choices=("auto", "squared", "cross-entropy"), default="auto")
+    p.add_argument("--task", choices=("auto", "binary", "multiclass", "multilabel", "regression"), default="auto")
+    p.add_argument("--lr", type=_positive, default=0.1, help="learning rate")
+    p.add_argument("--epochs", type=_count, default=100)
+    p.add_argument("--batch-size", type=_batch, default=1, help="rows per update: 1, N or 'full'")
+    p.add_argument("--shuffle", action=argparse.BooleanOptionalAction, default=True,
+                   help="shuffle the training rows every epoch (seeded)")
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--momentum", type=_finite, default=0.0)
+    p.add_argument("--l2", type=_finite, default=0.0, help="L2 penalty on weights (not biases)")
+    p.add_argument("--scale", choices=("standard", "minmax", "none"), default="standard")
+    p.add_argument("--holdout", type=_holdout, default="auto",
+                   help="fraction of rows held out (default auto: 0.2 from 50 rows on, else 0)")
+    p.add_argument("--init", type=Path, help="start from this model file (architecture, activations, scaling)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing output file")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="sheetnet", description="Small neural networks as live spreadsheet formulas.")
+    parser.add_argument("--version", action="version", version=f"sheetnet {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+    train_p = commands.add_parser("train", help="train a network on a CSV file and save the model (JSON)")
+    add_train_flags(train_p)
+    train_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="model file to write")
+    score_p = commands.add_parser("score", help="score a CSV file with a model")
+    score_p.add_argument("model", type=Path)
+    score_p.add_argument("data", type=Path)
+    score_p.add_argument("--threshold", type=_finite, default=0.5, help="decision threshold for probabilities")
+    score_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
+    score_p.add_argument("--force", action="store_true")
+    return parser
+
+
+def settings_from(args: argparse.Namespace) -> TrainSettings:
+    settings = TrainSettings(learning_rate=args.lr, epochs=args.epochs, batch_size=args.batch_size,
+                             shuffle=args.shuffle, seed=args.seed, momentum=args.momentum, l2=args.l2)
+    settings.validate()
+    return settings
+
+
+def architecture_from(args: argparse.Namespace) -> Architecture:
+    hidden_act = Activation(args.activation, args.steepness, args.midpoint) if args.activation == "sigmoid" \
+        else Activation(args.activation)
+    auto = lambda value: None if value == "auto" else value  # noqa: E731
+    return Architecture(hidden=args.hidden, activation=hidden_act, output=auto(args.output),
+                        loss=auto(args.loss), task=auto(args.task), scale=args.scale)
+
+
+def run_fit(args: argparse.Namespace, trace_epochs: int = 0) -> FitOutcome:
+    """Read the data (and starting model) named by the flags and train."""
+    settings = settings_from(args)
+    start = load_model(args.init) if args.init else None
+    table = dataio.read_csv(args.data)
+    progress = Progress(settings.epochs, "training", quiet=args.quiet)
+    return fit(table, args.target or (), settings, architecture_from(args), start=start, holdout=args.holdout,
+               inputs=args.inputs, trace_epochs=trace_epochs, progress=progress)
+
+
+def _metrics_lines(title: str, metrics: Metrics) -> list[str]:
+    if metrics.accuracy is None:
+        pairs = ", ".join(f"RMSE {r:.6g} MAE {m:.6g}" for r, m in zip(metrics.rmse, metrics.mae, strict=True))
+        return [f"{title} ({metrics.rows} rows): {pairs}"]
+    cells = [*metrics.labels, *(str(v) for row in metrics.confusion for v in row)]
+    width = max(len(c) for c in cells) + 2
+    lines = [f"{title} ({metrics.rows} rows): accuracy {metrics.accuracy:.4f}",
+             "  confusion (rows: true, columns: predicted)",
+             "  " + " " * width + "".join(f"{label:>{width}}" for label in metrics.labels)]
+    lines += ["  " + f"{label:>{width}}" + "".join(f"{v:>{width}}" for v in row)
+              for label, row in zip(metrics.labels, metrics.confusion, strict=True)]
+    return lines
+
+
+def summary_lines(outcome: FitOutcome) -> list[str]:
+    """What ``train`` prints: the inferred set-up, the loss every few epochs, the metrics."""
+    model, result = outcome.model, outcome.result
+    arch = " -> ".join([str(len(model.inputs)), *(f"{layer.units} {layer.activation.name}" for layer in model.layers)])
+    lines = [f"task: {model.task}; network: {arch}; loss: {model.loss}; "
+             f"scaling: {model.scaling.method if model.scaling else 'none'}",
+             f"rows: {len(outcome.train_rows)} training, {len(outcome.holdout_rows)} holdout"]
+    epochs = len(result.epoch_loss)
+    every = max(1, epochs // 10)
+    for e in range(epochs):
+        if (e + 1) % every == 0 or e == 0 or e == epochs - 1:
+            acc = result.epoch_accuracy[e]
+            extra = "" if np.isnan(acc) else f"  accuracy {acc:.4f}"
+            lines.append(f"epoch {e + 1:>6}  loss {result.epoch_loss[e]:.6g}{extra}")
+    lines += _metrics_lines("training", outcome.train_metrics)
+    if outcome.holdout_metrics is not None:
+        lines += _metrics_lines("holdout", outcome.holdout_metrics)
+    return lines
+
+
+def cmd_train(args: argparse.Namespace) -> int:
+    check_output(args.out, args.force, inputs=[p for p in (args.data, args.init) if p])
+    outcome = run_fit(args)
+    print("\n".join(summary_lines(outcome)))
+    outcome.model.save(args.out, force=args.force)
+    print(f"model written to {args.out}")
+    return 0
+
+
+def cmd_score(args: argparse.Namespace) -> int:
+    check_output(args.out, args.force, inputs=[args.model, args.data])
+    model = load_model(args.model)
+    table = dataio.read_csv(args.data)
+    frame = score_table(model, table, args.threshold)
+    write_atomic(args.out, lambda tmp: frame.to_csv(tmp, index=False, float_format="%.17g"), force=args.force)
+    if all(name in table.header for name in model.target) and model.target:
+        try:
+            targets = dataio.encode_targets(table, model.target, model.task, model.classes)
+            metrics = evaluate(model, dataio.feature_matrix(table, model.inputs), targets.values, args.threshold)
+            print("\n".join(_metrics_lines("scored", metrics)))
+        except SheetNetError as exc:
+            print(f"note: targets present but not scored ({exc})")
+    print(f"{len(frame)} rows scored; written to {args.out}")
+    return 0
+
+
+COMMANDS = {"train": cmd_train, "score": cmd_score}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point: returns the exit code."""
+    try:
+        args = _parser().parse_args(argv)
+        return COMMANDS[args.command](args)
+    except SheetNetError as exc:
+        print(f"sheetnet: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("sheetnet: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,60 @@
+"""Safe output files: checked before any work, written atomically, inputs never overwritten.
+
+Every command that writes goes through :func:`check_output` first (so a bad path fails
+before training) and :func:`write_atomic` last (temporary file in the same folder, then
+``os.replace``), so a failure or Ctrl-C never leaves a partial file behind.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from collections.abc import Callable, Iterable
+from pathlib import Path
+
+from sheetnet.errors import UsageError
+
+
+def check_output(path: Path, force: bool, inputs: Iterable[Path] = ()) -> Path:
+    """Refuse an output path that cannot or must not be written; return it resolved."""
+    target = Path(path)
+    if not target.name or target.is_dir():
+        raise UsageError(f"{path}: output path is a folder, not a file")
+    folder = target.parent if str(target.parent) else Path(".")
+    if not folder.is_dir():
+        raise UsageError(f"{path}: output folder {folder} does not exist")
+    for source in inputs:
+        if _same_file(target, Path(source)):
+            raise UsageError(f"{path}: output would overwrite the input file {source}")
+    if target.exists() and not force:
+        raise UsageError(f"{path}: output file exists; use --force to overwrite it")
+    return target
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        return a.exists() and b.exists() and os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
+def write_atomic(path: Path, write: Callable[[Path], None], force: bool = False) -> Path:
+    """Call ``write(tmp)`` on a temporary path beside ``path`` and move it into place."""
+    target = check_output(path, force)
+    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
+    os.close(fd)
+    tmp = Path(tmp_name)
+    try:
+        write(tmp)
+        os.replace(tmp, target)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise
+    return target
+
+
+def write_text_atomic(path: Path, text: str, force: bool = False) -> Path:
+    """Write UTF-8 text atomically."""
+    return write_atomic(path, lambda tmp: tmp.write_text(text, encoding="utf-8"), force=force)

@@ -1,0 +1,143 @@
+"""Activation functions and losses: the numpy side of the network's vocabulary.
+
+Every function here has a spreadsheet twin (``sheetnet.book.xlformulas``) that uses the same
+stable form and the same clip, so that the workbook and the trainer agree to rounding.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from sheetnet.errors import ModelFileError
+
+ELEMENTWISE = ("sigmoid", "tanh", "relu", "identity", "step")
+NAMES = (*ELEMENTWISE, "softmax")
+TRAINABLE = ("sigmoid", "tanh", "relu", "identity", "softmax")
+LOSSES = ("squared", "cross-entropy")
+
+#: Probabilities are clipped to at least this inside the logarithm of the cross-entropy.
+#: 1e-12 (not machine epsilon) because LibreOffice snaps ``1-y`` to 0 once y is within
+#: 2**-48 of 1, and then both engines must land on the same clipped value.
+PROBABILITY_CLIP = 1e-12
+
+
+@dataclass(frozen=True)
+class Activation:
+    """An activation by name; ``steepness`` and ``midpoint`` shape the sigmoid.
+
+    sigmoid(z) = 1 / (1 + exp(-steepness * (z - midpoint))); step(z) = 1 if z >= midpoint else 0.
+    The other functions ignore both parameters, which must then keep their defaults.
+    """
+
+    name: str = "sigmoid"
+    steepness: float = 1.0
+    midpoint: float = 0.0
+
+    def __post_init__(self) -> None:
+        if self.name not in NAMES:
+            raise ModelFileError(f"unknown activation {self.name!r}; expected one of {', '.join(NAMES)}")
+        shaped = self.name in ("sigmoid", "step")
+        if not shaped and (self.steepness != 1.0 or self.midpoint != 0.0):
+            raise ModelFileError(f"activation {self.name!r} takes no steepness or midpoint")
+        if self.name == "sigmoid" and not self.steepness > 0:
+            raise ModelFileError(f"sigmoid steepness must be > 0, got {self.steepness!r}")
+
+    def to_dict(self) -> dict:
+        if self.name == "sigmoid":
+            return {"name": self.name, "steepness": self.steepness, "midpoint": self.midpoint}
+        if self.name == "step":
+            return {"name": self.name, "midpoint": self.midpoint}
+        return {"name": self.name}
+
+
+def stable_sigmoid(u: np.ndarray) -> np.ndarray:
+    """1/(1+e^-u) for u >= 0 and e^u/(1+e^u) below: no overflow for any finite u."""
+    out = np.empty_like(u, dtype=float)
+    positive = u >= 0
+    out[positive] = 1.0 / (1.0 + np.exp(-u[positive]))
+    e = np.exp(u[~positive])
+    out[~positive] = e / (1.0 + e)
+    return out
+
+
+def stable_softmax(z: np.ndarray) -> np.ndarray:
+    """Row-wise softmax with the row maximum subtracted first (Goodfellow et al. 2016, §4.1)."""
+    e = np.exp(z - z.max(axis=-1, keepdims=True))
+    return e / e.sum(axis=-1, keepdims=True)
+
+
+def forward(act: Activation, z: np.ndarray) -> np.ndarray:
+    """Activation of the weighted sums ``z`` (shape (batch, units))."""
+    if act.name == "sigmoid":
+        return stable_sigmoid(act.steepness * (z - act.midpoint))
+    if act.name == "tanh":
+        return np.tanh(z)
+    if act.name == "relu":
+        return np.maximum(z, 0.0)
+    if act.name == "identity":
+        return z.astype(float, copy=True)
+    if act.name == "step":
+        return (z >= act.midpoint).astype(float)
+    return stable_softmax(z)
+
+
+def derivative(act: Activation, z: np.ndarray, a: np.ndarray) -> np.ndarray:
+    """Element-wise f'(z), written from the output ``a`` where it can be (so a sheet cell can
+    point at the activation cell it already has). Softmax is not element-wise: see
+    :func:`output_delta`.
+    """
+    if act.name == "sigmoid":
+        return act.steepness * a * (1.0 - a)
+    if act.name == "tanh":
+        return 1.0 - a**2
+    if act.name == "relu":
+        return (z > 0).astype(float)
+    if act.name == "identity":
+        return np.ones_like(z, dtype=float)
+    raise ModelFileError(f"activation {act.name!r} has no usable derivative for training")
+
+
+def sample_loss(loss: str, output: Activation, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Per-sample loss, shape (batch,).
+
+    squared: 1/2 * sum_k (t_k - y_k)^2. cross-entropy on independent sigmoid outputs
+    (binary, multilabel): -sum_k [t ln max(y, clip) + (1-t) ln max(1-y, clip)]; on a
+    softmax output (one-of-K): -sum_k t_k ln max(y_k, clip).
+    """
+    if loss == "squared":
+        return 0.5 * np.sum((t - y) ** 2, axis=1)
+    positive = t * np.log(np.maximum(y, PROBABILITY_CLIP))
+    if output.name == "softmax":
+        return -np.sum(positive, axis=1)
+    negative = (1.0 - t) * np.log(np.maximum(1.0 - y, PROBABILITY_CLIP))
+    return -np.sum(positive + negative, axis=1)
+
+
+def output_delta(loss: str, output: Activation, z: np.ndarray, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """dE/dz at the output layer, shape (batch, outputs).
+
+    The canonical pairs collapse to y - t (Bishop 2006, eqs. 5.18-5.21 and 4.106-4.109):
+    identity + squared, sigmoid + cross-entropy (times the steepness), softmax +
+    cross-entropy. Other pairs use the chain rule; softmax + squared uses its Jacobian
+    y_j (g_j - sum_k g_k y_k) with g = y - t.
+    """
+    g = y - t
+    if loss == "cross-entropy":
+        if output.name == "sigmoid":
+            return output.steepness * g
+        return g
+    if output.name == "softmax":
+        return y * (g - np.sum(g * y, axis=1, keepdims=True))
+    return derivative(output, z, y) * g
+
+
+def check_pair(loss: str, output: Activation) -> None:
+    """Refuse loss/output pairs that have no meaning (cross-entropy needs probabilities)."""
+    if loss not in LOSSES:
+        raise ModelFileError(f"unknown loss {loss!r}; expected one of {', '.join(LOSSES)}")
+    if loss == "cross-entropy" and output.name not in ("sigmoid", "softmax"):
+        raise ModelFileError(
+            f"cross-entropy needs probabilities: use sigmoid or softmax outputs, not {output.name!r}"
+        )

@@ -1,0 +1,47 @@
+"""Scoring a table with a model: probability or value columns and the predicted label."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from sheetnet.net import data as dataio
+from sheetnet.net.model import Model
+from sheetnet.net.network import predict_outputs
+
+
+def output_columns(model: Model) -> list[str]:
+    """Names of the score columns: one probability per class, or one value per output."""
+    if model.task == "regression":
+        return ["predicted"] if len(model.outputs) == 1 else [f"predicted_{o}" for o in model.outputs]
+    if model.task == "binary":
+        return [f"probability_{c}" for c in (model.classes or ("0", "1"))]
+    return [f"probability_{o}" for o in model.outputs]
+
+
+def predicted_labels(model: Model, y: np.ndarray, threshold: float = 0.5) -> list[str]:
+    """The label each row gets: class label, or for multilabel the ';'-joined positive outputs."""
+    if model.task == "binary":
+        negative, positive = model.classes or ("0", "1")
+        return [positive if p >= threshold else negative for p in y[:, 0]]
+    if model.task == "multiclass":
+        labels = model.classes or model.outputs
+        return [labels[k] for k in np.argmax(y, axis=1)]
+    return [";".join(o for o, p in zip(model.outputs, row, strict=True) if p >= threshold) for row in y]
+
+
+def score_table(model: Model, table: dataio.Table, threshold: float = 0.5) -> pd.DataFrame:
+    """The model's input columns (as written in the file) plus scores and ``predicted``."""
+    x = dataio.feature_matrix(table, model.inputs)
+    y = predict_outputs(model, x)
+    frame = pd.DataFrame({name: table.column(name) for name in model.inputs})
+    columns = output_columns(model)
+    if model.task == "regression":
+        for k, name in enumerate(columns):
+            frame[name] = y[:, k]
+        return frame
+    values = np.hstack([1.0 - y, y]) if model.task == "binary" else y
+    for k, name in enumerate(columns):
+        frame[name] = values[:, k]
+    frame["predicted"] = predicted_labels(model, y, threshold)
+    return frame

@@ -1,0 +1,207 @@
+"""The reference trainer: plain gradient descent with optional momentum and L2, and a trace.
+
+Conventions (the workbook's training record follows them cell for cell):
+
+* One step = one update on a batch of consecutive rows of the epoch's order (data order, or a
+  fresh permutation per epoch when shuffling). The last batch of an epoch may be smaller.
+* Batch loss and gradient are means over the rows of the batch.
+* L2 (``l2`` = lambda): the gradient of every weight gains ``lambda * w``; biases are not penalised.
+  Reported losses are the data loss only.
+* Momentum (``momentum`` = mu): v <- mu * v - lr * g, then p <- p + v, with v = 0 at the start.
+  With mu = 0 this is p <- p - lr * g exactly.
+* Seeds: ``np.random.SeedSequence(seed)`` spawns independent streams for initialisation,
+  shuffling and the holdout split, so changing one use never shifts another.
+* Initialisation: W and b drawn from U(-r, r) with r = sqrt(6 / (fan_in + fan_out)), or
+  sqrt(2 / (fan_in + fan_out)) for sigmoid layers (Glorot & Bengio 2010, as scikit-learn applies
+  it), then rounded to 12 decimal places so that every spreadsheet writer and reader keeps them
+  exactly.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from sheetnet.errors import TrainingError, UsageError
+from sheetnet.net import activations as act
+from sheetnet.net.model import Layer, Model
+from sheetnet.net.network import Pass, deltas, forward_pass, gradients
+
+INIT_DECIMALS = 12
+
+
+@dataclass(frozen=True)
+class TrainSettings:
+    """Gradient-descent settings. ``batch_size=None`` means the full training set per step."""
+
+    learning_rate: float = 0.1
+    epochs: int = 100
+    batch_size: int | None = 1
+    shuffle: bool = True
+    seed: int = 0
+    momentum: float = 0.0
+    l2: float = 0.0
+
+    def validate(self) -> None:
+        if not (isinstance(self.learning_rate, float | int) and math.isfinite(self.learning_rate)
+                and self.learning_rate > 0):
+            raise UsageError(f"learning rate must be a positive number, got {self.learning_rate!r}")
+        if not isinstance(self.epochs, int) or self.epochs < 1:
+            raise UsageError(f"epochs must be a whole number >= 1, got {self.epochs!r}")
+        if self.batch_size is not None and (not isinstance(self.batch_size, int) or self.batch_size < 1):
+            raise UsageError(f"batch size must be a whole number >= 1 or 'full', got {self.batch_size!r}")
+        if not (math.isfinite(self.momentum) and 0 <= self.momentum < 1):
+            raise UsageError(f"momentum must be in [0, 1), got {self.momentum!r}")
+        if not (math.isfinite(self.l2) and self.l2 >= 0):
+            raise UsageError(f"L2 penalty must be >= 0, got {self.l2!r}")
+
+    def to_dict(self) -> dict:
+        return {"learning_rate": self.learning_rate, "epochs": self.epochs,
+                "batch_size": "full" if self.batch_size is None else self.batch_size,
+                "shuffle": self.shuffle, "seed": self.seed, "momentum": self.momentum, "l2": self.l2}
+
+
+@dataclass(frozen=True)
+class TraceStep:
+    """Everything one update computed. Per layer k (0-based) the tuples hold arrays:
+
+    ``z[k]``, ``a[k]``, ``delta[k]``: (batch, units_k); ``grad_w[k]``: (units_k, fan_in_k);
+    ``grad_b[k]``: (units_k,); ``before``/``after``: the layers' parameters around the update;
+    ``velocity[k]``: (W, b) after the update (zeros when momentum is off).
+    ``rows`` are indices into the training rows; ``inputs`` the scaled inputs, ``targets`` the
+    encoded targets, ``loss`` the per-sample loss (batch,), all before the update.
+    """
+
+    epoch: int
+    step: int
+    rows: np.ndarray
+    inputs: np.ndarray
+    targets: np.ndarray
+    z: tuple[np.ndarray, ...]
+    a: tuple[np.ndarray, ...]
+    loss: np.ndarray
+    delta: tuple[np.ndarray, ...]
+    grad_w: tuple[np.ndarray, ...]
+    grad_b: tuple[np.ndarray, ...]
+    before: tuple[Layer, ...]
+    after: tuple[Layer, ...]
+    velocity: tuple[tuple[np.ndarray, np.ndarray], ...]
+
+
+@dataclass(frozen=True)
+class TrainResult:
+    """The trained model, the model it started from, per-epoch curves and the optional trace.
+
+    ``epoch_loss[e]`` / ``epoch_accuracy[e]``: mean per-sample loss and accuracy of epoch e+1,
+    each sample scored by the parameters in force when its step ran (before that update).
+    Accuracy is NaN for regression.
+    """
+
+    model: Model
+    initial: Model
+    epoch_loss: np.ndarray
+    epoch_accuracy: np.ndarray
+    trace: tuple[TraceStep, ...]
+
+
+def seed_streams(seed: int) -> tuple[np.random.Generator, np.random.Generator, np.random.Generator]:
+    """Independent generators for initialisation, shuffling and the holdout split."""
+    init, shuffle, split = np.random.SeedSequence(seed).spawn(3)
+    return np.random.default_rng(init), np.random.default_rng(shuffle), np.random.default_rng(split)
+
+
+def init_layers(sizes: list[int], activations: list[act.Activation], seed: int) -> tuple[Layer, ...]:
+    """Seeded initial layers for ``sizes`` = [n_inputs, units_1, ..., n_outputs]."""
+    rng = seed_streams(seed)[0]
+    layers = []
+    for fan_in, fan_out, activation in zip(sizes[:-1], sizes[1:], activations, strict=True):
+        factor = 2.0 if activation.name == "sigmoid" else 6.0
+        r = math.sqrt(factor / (fan_in + fan_out))
+        w = np.round(rng.uniform(-r, r, size=(fan_out, fan_in)), INIT_DECIMALS)
+        b = np.round(rng.uniform(-r, r, size=fan_out), INIT_DECIMALS)
+        layers.append(Layer(weights=w, bias=b, activation=activation))
+    return tuple(layers)
+
+
+def check_trainable(model: Model) -> None:
+    """Refuse layers whose derivative cannot drive gradient descent."""
+    for k, layer in enumerate(model.layers):
+        if layer.activation.name not in act.TRAINABLE:
+            raise UsageError(
+                f"layer {k + 1} uses the {layer.activation.name!r} activation, whose derivative is zero "
+                "almost everywhere: it can score data but cannot be trained by gradient descent"
+            )
+    act.check_pair(model.loss, model.output_activation)
+
+
+def _batches(n: int, settings: TrainSettings, rng: np.random.Generator) -> list[np.ndarray]:
+    order = rng.permutation(n) if settings.shuffle else np.arange(n)
+    size = n if settings.batch_size is None else min(settings.batch_size, n)
+    return [order[i:i + size] for i in range(0, n, size)]
+
+
+def _correct(task: str, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Per-sample correctness at threshold 0.5 (multilabel: every label right)."""
+    if task == "multiclass":
+        return np.argmax(y, axis=1) == np.argmax(t, axis=1)
+    return np.all((y >= 0.5) == (t >= 0.5), axis=1)
+
+
+def _update(layers: tuple[Layer, ...], grad_w, grad_b, velocity, settings: TrainSettings):
+    new_layers, new_velocity = [], []
+    for layer, gw, gb, (vw, vb) in zip(layers, grad_w, grad_b, velocity, strict=True):
+        vw = settings.momentum * vw - settings.learning_rate * gw
+        vb = settings.momentum * vb - settings.learning_rate * gb
+        new_layers.append(replace(layer, weights=layer.weights + vw, bias=layer.bias + vb))
+        new_velocity.append((vw, vb))
+    return tuple(new_layers), tuple(new_velocity)
+
+
+def _check_finite(layers: tuple[Layer, ...], epoch: int, step: int) -> None:
+    for k, layer in enumerate(layers):
+        if not (np.isfinite(layer.weights).all() and np.isfinite(layer.bias).all()):
+            raise TrainingError(
+                f"training diverged: a parameter of layer {k + 1} became non-finite in epoch {epoch} "
+                f"(step {step}); try a smaller learning rate"
+            )
+
+
+def train(model: Model, x: np.ndarray, t: np.ndarray, settings: TrainSettings,
+          trace_epochs: int = 0, progress: Callable[[int], None] | None = None) -> TrainResult:
+    """Train ``model`` (its layers are the starting point) on scaled inputs ``x`` and targets ``t``.
+
+    ``trace_epochs``: record every step of the first that many epochs (0: none).
+    ``progress`` is called with the number of finished epochs.
+    """
+    settings.validate()
+    check_trainable(model)
+    shuffle_rng = seed_streams(settings.seed)[1]
+    layers = model.layers
+    velocity = tuple((np.zeros_like(layer.weights), np.zeros_like(layer.bias)) for layer in layers)
+    epoch_loss, epoch_acc, trace = [], [], []
+    step = 0
+    for epoch in range(1, settings.epochs + 1):
+        losses, correct = [], []
+        for rows in _batches(len(x), settings, shuffle_rng):
+            step += 1
+            fwd: Pass = forward_pass(layers, x[rows])
+            loss = act.sample_loss(model.loss, model.output_activation, fwd.output, t[rows])
+            delta = deltas(layers, fwd, t[rows], model.loss)
+            grad_w, grad_b = gradients(layers, x[rows], fwd, delta, settings.l2)
+            new_layers, velocity = _update(layers, grad_w, grad_b, velocity, settings)
+            _check_finite(new_layers, epoch, step)
+            if epoch <= trace_epochs:
+                trace.append(TraceStep(epoch, step, rows, x[rows], t[rows], fwd.z, fwd.a, loss, delta,
+                                       grad_w, grad_b, layers, new_layers, velocity))
+            losses.append(loss)
+            correct.append(_correct(model.task, fwd.output, t[rows]))
+            layers = new_layers
+        epoch_loss.append(float(np.mean(np.concatenate(losses))))
+        epoch_acc.append(float(np.mean(np.concatenate(correct))) if model.task != "regression" else math.nan)
+        if progress is not None:
+            progress(epoch)
+    return TrainResult(model=model.with_layers(layers), initial=model, epoch_loss=np.array(epoch_loss),
+                       epoch_accuracy=np.array(epoch_acc), trace=tuple(trace))
