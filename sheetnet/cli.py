@@ -165,8 +165,9 @@ def run_fit(args: argparse.Namespace, trace_epochs: int = 0) -> FitOutcome:
 
 def _metrics_lines(title: str, metrics: Metrics) -> list[str]:
     if metrics.accuracy is None:
-        pairs = ", ".join(f"RMSE {r:.6g} MAE {m:.6g}" for r, m in zip(metrics.rmse, metrics.mae, strict=True))
-        return [f"{title} ({metrics.rows} rows): {pairs}"]
+        return [f"{title} ({metrics.rows} rows):"] + [
+            f"  {name}: RMSE {r:.6g}  MAE {m:.6g}"
+            for name, r, m in zip(metrics.labels, metrics.rmse, metrics.mae, strict=True)]
     cells = [*metrics.labels, *(str(v) for row in metrics.confusion for v in row)]
     width = max(len(c) for c in cells) + 2
     lines = [f"{title} ({metrics.rows} rows): accuracy {metrics.accuracy:.4f}",

@@ -15,7 +15,7 @@ class Metrics:
     """``confusion[i][j]`` counts cases of true class i predicted as class j (labels in ``labels``).
 
     Multilabel: accuracy is the share of cases with every label right, and the confusion matrix
-    is summed over the labels (0/1). Regression: ``rmse`` and ``mae`` per output.
+    is summed over the labels (0/1). Regression: ``rmse`` and ``mae`` per output, named in ``labels``.
     """
 
     rows: int
@@ -27,9 +27,9 @@ class Metrics:
 
     def to_dict(self) -> dict:
         out: dict = {"rows": self.rows}
+        out["labels"] = list(self.labels)
         if self.accuracy is not None:
-            out.update(accuracy=self.accuracy, labels=list(self.labels),
-                       confusion=[list(r) for r in self.confusion])
+            out.update(accuracy=self.accuracy, confusion=[list(r) for r in self.confusion])
         if self.rmse:
             out.update(rmse=list(self.rmse), mae=list(self.mae))
         return out
@@ -40,7 +40,7 @@ def evaluate(model: Model, x_raw: np.ndarray, t: np.ndarray, threshold: float = 
     y = predict_outputs(model, x_raw)
     if model.task == "regression":
         err = y - t
-        return Metrics(rows=len(t), rmse=tuple(np.sqrt(np.mean(err**2, axis=0)).tolist()),
+        return Metrics(rows=len(t), labels=model.outputs, rmse=tuple(np.sqrt(np.mean(err**2, axis=0)).tolist()),
                        mae=tuple(np.mean(np.abs(err), axis=0).tolist()))
     pred = predicted_codes(model, y, threshold)
     if model.task == "multiclass":
