@@ -9,7 +9,7 @@ import pytest
 
 os.environ.setdefault("TQDM_DISABLE", "1")
 
-from sheetnet.cli import main  # noqa: E402
+from sheetnet.cli import main
 
 
 def write_csv(path: Path, header: list[str], rows: list[list[object]]) -> Path:

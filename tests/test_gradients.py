@@ -49,7 +49,7 @@ def test_backprop_matches_central_differences(hidden, pair):
     fwd = forward_pass(layers, x)
     grad_w, grad_b = gradients(layers, x, fwd, deltas(layers, fwd, t, loss), l2)
     eps = 1e-5
-    for k, layer in enumerate(layers):
+    for k, _layer in enumerate(layers):
         for name, analytic in (("weights", grad_w[k]), ("bias", grad_b[k])):
             numeric = np.zeros_like(analytic)
             for idx in np.ndindex(analytic.shape):

@@ -85,15 +85,15 @@ def skeleton(table: dataio.Table, target: tuple[str, ...], inputs: tuple[str, ..
              arch: Architecture, seed: int) -> tuple[Model, dataio.Targets]:
     """A freshly initialised model for the table, and its encoded targets."""
     task = dataio.infer_task(table, target, arch.task, arch.output)
+    output = Activation(arch.output or output_for(task))
+    loss = arch.loss or loss_for(output.name)
+    _check_pair(loss, output)
     encoded = dataio.encode_targets(table, target, task)
     inputs = inputs or tuple(c for c in table.header if c not in target)
     if not inputs:
         raise UsageError(f"{table.source}: no input columns left besides the target(s)")
     if any(h < 1 for h in arch.hidden):
         raise UsageError(f"hidden layer sizes must be >= 1, got {','.join(map(str, arch.hidden))}")
-    output = Activation(arch.output or output_for(task))
-    loss = arch.loss or loss_for(output.name)
-    _check_pair(loss, output)
     activations = [arch.activation] * len(arch.hidden) + [output]
     sizes = [len(inputs), *arch.hidden, len(encoded.outputs)]
     model = Model(inputs=inputs, outputs=encoded.outputs, task=task, loss=loss,
