@@ -1,4 +1,4 @@
-"""The command line: ``sheetnet train | score``.
+"""The command line: ``sheetnet train | score | build | demo``.
 
 Thin by design: parse flags, call the library, print a summary. Every :class:`SheetNetError`
 becomes one line on stderr and its exit code (1 bad data, 2 bad usage); nothing else prints
@@ -10,13 +10,16 @@ from __future__ import annotations
 import argparse
 import sys
 from collections.abc import Sequence
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
 from sheetnet import __version__
+from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.demo import DEMO_FLAGS, demo_csv_text
 from sheetnet.errors import SheetNetError, UsageError
-from sheetnet.files import check_output, write_atomic
+from sheetnet.files import check_output, write_atomic, write_text_atomic
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
 from sheetnet.net.fit import Architecture, FitOutcome, fit
@@ -93,9 +96,12 @@ def _holdout(text: str) -> float | str:
     return value
 
 
-def add_train_flags(p: argparse.ArgumentParser) -> None:
+def add_train_flags(p: argparse.ArgumentParser, data_optional: bool = False) -> None:
     """Flags shared by every command that trains."""
-    p.add_argument("data", type=Path, help="CSV file with a header row")
+    if data_optional:
+        p.add_argument("data", type=Path, nargs="?", help="CSV file with a header row")
+    else:
+        p.add_argument("data", type=Path, help="CSV file with a header row")
     p.add_argument("--target", type=_columns, help="target column(s), comma-separated")
     p.add_argument("--inputs", type=_columns, help="input columns (default: every other column)")
     p.add_argument("--hidden", type=_hidden, default=(4,), help="hidden layer sizes, e.g. 8,4, or 'none'")
@@ -129,6 +135,18 @@ def _parser() -> argparse.ArgumentParser:
     train_p = commands.add_parser("train", help="train a network on a CSV file and save the model (JSON)")
     add_train_flags(train_p)
     train_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="model file to write")
+    build_p = commands.add_parser("build", help="write the network as a workbook of live formulas")
+    add_train_flags(build_p, data_optional=True)
+    build_p.add_argument("--model", type=Path, help="write the workbook for this model file instead of training")
+    build_p.add_argument("--trace-epochs", type=_count, help="epochs replayed in the training record (default all)")
+    build_p.add_argument("--trace-rows", type=_count, help="training rows replayed in the record (default all)")
+    build_p.add_argument("--max-cells", type=_count, default=DEFAULT_MAX_CELLS,
+                         help=f"cap on formula cells (default {DEFAULT_MAX_CELLS:,})")
+    build_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="workbook to write")
+    demo_p = commands.add_parser("demo", help="build the demo workbook from invented data")
+    demo_p.add_argument("--out", type=Path, default=Path("sheetnet_demo"), help="folder to write into")
+    demo_p.add_argument("--force", action="store_true", help="overwrite existing demo files")
+    demo_p.add_argument("--quiet", action="store_true")
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path)
     score_p.add_argument("data", type=Path)
@@ -153,14 +171,15 @@ def architecture_from(args: argparse.Namespace) -> Architecture:
                         loss=auto(args.loss), task=auto(args.task), scale=args.scale)
 
 
-def run_fit(args: argparse.Namespace, trace_epochs: int = 0) -> FitOutcome:
+def run_fit(args: argparse.Namespace) -> tuple[FitOutcome, dataio.Table, TrainSettings]:
     """Read the data (and starting model) named by the flags and train."""
     settings = settings_from(args)
     start = load_model(args.init) if args.init else None
     table = dataio.read_csv(args.data)
     progress = Progress(settings.epochs, "training", quiet=args.quiet)
-    return fit(table, args.target or (), settings, architecture_from(args), start=start, holdout=args.holdout,
-               inputs=args.inputs, trace_epochs=trace_epochs, progress=progress)
+    outcome = fit(table, args.target or (), settings, architecture_from(args), start=start, holdout=args.holdout,
+                  inputs=args.inputs, progress=progress)
+    return outcome, table, settings
 
 
 def _metrics_lines(title: str, metrics: Metrics) -> list[str]:
@@ -200,7 +219,7 @@ def summary_lines(outcome: FitOutcome) -> list[str]:
 
 def cmd_train(args: argparse.Namespace) -> int:
     check_output(args.out, args.force, inputs=[p for p in (args.data, args.init) if p])
-    outcome = run_fit(args)
+    outcome, _, _ = run_fit(args)
     print("\n".join(summary_lines(outcome)))
     outcome.model.save(args.out, force=args.force)
     print(f"model written to {args.out}")
@@ -224,7 +243,52 @@ def cmd_score(args: argparse.Namespace) -> int:
     return 0
 
 
-COMMANDS = {"train": cmd_train, "score": cmd_score}
+def cmd_build(args: argparse.Namespace) -> int:
+    check_output(args.out, args.force, inputs=[p for p in (args.data, args.model, args.init) if p])
+    options = RecordOptions(epochs=args.trace_epochs, rows=args.trace_rows)
+    if args.model:
+        spec, inputs, notes = _model_book(args, options)
+    else:
+        if args.data is None:
+            raise UsageError("build needs a data file, or --model MODEL.json")
+        outcome, table, settings = run_fit(args)
+        print("\n".join(summary_lines(outcome)))
+        spec, inputs = from_fit(outcome, table, settings, options)
+        notes = []
+    result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells)
+    for note in notes:
+        print(f"note: {note}")
+    record = "" if result.layout.record is None else f", training record of {result.layout.record.nrows:,} rows"
+    print(f"workbook written to {result.path}: {result.formula_cells:,} formula cells{record}")
+    return 0
+
+
+def _model_book(args: argparse.Namespace, options: RecordOptions):
+    model = load_model(args.model)
+    table = dataio.read_csv(args.data) if args.data else None
+    if args.target:
+        model = replace(model, target=args.target)
+    settings = settings_from(args) if table is not None else None
+    return from_model(model, table, settings, options)
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    folder = args.out
+    folder.mkdir(parents=True, exist_ok=True)
+    data = folder / "invented_kiln_firings.csv"
+    book = folder / "kiln_demo.xlsx"
+    for path in (data, book):
+        check_output(path, args.force)
+    write_text_atomic(data, demo_csv_text(), force=args.force)
+    flags = ["build", str(data), *DEMO_FLAGS, "-o", str(book)]
+    flags += ["--force"] if args.force else []
+    flags += ["--quiet"] if args.quiet else []
+    code = cmd_build(_parser().parse_args(flags))
+    print(f"demo data (invented) written to {data}")
+    return code
+
+
+COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

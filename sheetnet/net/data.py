@@ -1,7 +1,8 @@
 """Data in: CSV reading, feature and target encoding, input scaling, holdout split.
 
 CSV files are read as UTF-8 (a byte-order mark is allowed) with the delimiter detected among
-comma, semicolon and tab. Every complaint names the file, the line and the column.
+comma, semicolon and tab; blank lines, and lines starting with ``#`` before the header, are
+skipped. Every complaint names the file, the line and the column.
 """
 
 from __future__ import annotations
@@ -68,6 +69,8 @@ def read_csv(path: str | Path) -> Table:
         for cells in reader:
             if not any(c.strip() for c in cells):
                 continue
+            if header is None and cells[0].lstrip().startswith("#"):
+                continue  # comment lines before the header (e.g. a note that the data is invented)
             if header is None:
                 header = _check_header(path, cells, reader.line_num)
                 continue
@@ -241,7 +244,7 @@ def encode_targets(table: Table, target: tuple[str, ...], task: str,
     if len(target) != 1:
         raise UsageError(f"a {task} task takes one target column, got {len(target)}")
     if task == "binary":
-        soft = _probabilities(table.column(target[0]))
+        soft = binary_probabilities(table.column(target[0]))
         if soft is not None:
             return Targets(task=task, outputs=(target[0],), classes=classes or ("0", "1"), values=soft[:, None])
     labels = [_label(v) for v in table.column(target[0])]
@@ -255,7 +258,7 @@ def encode_targets(table: Table, target: tuple[str, ...], task: str,
     return Targets(task=task, outputs=classes, classes=classes, values=np.eye(len(classes))[codes])
 
 
-def _probabilities(texts: list[str]) -> np.ndarray | None:
+def binary_probabilities(texts: list[str]) -> np.ndarray | None:
     """Numeric binary targets in [0, 1] are used as they are (0/1, or soft targets like 0.01)."""
     values = [parse_number(v) for v in texts]
     if any(v is None or not 0.0 <= v <= 1.0 for v in values):

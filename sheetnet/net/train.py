@@ -20,7 +20,7 @@ Conventions (the workbook's training record follows them cell for cell):
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -143,6 +143,13 @@ def _batches(n: int, settings: TrainSettings, rng: np.random.Generator) -> list[
     return [order[i:i + size] for i in range(0, n, size)]
 
 
+def epoch_batches(n: int, settings: TrainSettings, epochs: int | None = None) -> Iterator[list[np.ndarray]]:
+    """The batches (row indices) of each epoch, as the trainer draws them from the seed."""
+    shuffle_rng = seed_streams(settings.seed)[1]
+    for _ in range(settings.epochs if epochs is None else epochs):
+        yield _batches(n, settings, shuffle_rng)
+
+
 def _correct(task: str, y: np.ndarray, t: np.ndarray) -> np.ndarray:
     """Per-sample correctness at threshold 0.5 (multilabel: every label right)."""
     if task == "multiclass":
@@ -170,22 +177,26 @@ def _check_finite(layers: tuple[Layer, ...], epoch: int, step: int) -> None:
 
 
 def train(model: Model, x: np.ndarray, t: np.ndarray, settings: TrainSettings,
-          trace_epochs: int = 0, progress: Callable[[int], None] | None = None) -> TrainResult:
+          trace_epochs: int = 0, progress: Callable[[int], None] | None = None,
+          schedule: Iterable[list[np.ndarray]] | None = None) -> TrainResult:
     """Train ``model`` (its layers are the starting point) on scaled inputs ``x`` and targets ``t``.
 
     ``trace_epochs``: record every step of the first that many epochs (0: none).
     ``progress`` is called with the number of finished epochs.
+    ``schedule``: the batches (row indices into ``x``) of every epoch, replayed as given instead
+    of being drawn from the settings; the number of epochs is then ``len(schedule)``.
     """
     settings.validate()
     check_trainable(model)
-    shuffle_rng = seed_streams(settings.seed)[1]
+    if schedule is None:
+        schedule = epoch_batches(len(x), settings)
     layers = model.layers
     velocity = tuple((np.zeros_like(layer.weights), np.zeros_like(layer.bias)) for layer in layers)
     epoch_loss, epoch_acc, trace = [], [], []
     step = 0
-    for epoch in range(1, settings.epochs + 1):
+    for epoch, batches in enumerate(schedule, start=1):
         losses, correct = [], []
-        for rows in _batches(len(x), settings, shuffle_rng):
+        for rows in batches:
             step += 1
             fwd: Pass = forward_pass(layers, x[rows])
             loss = act.sample_loss(model.loss, model.output_activation, fwd.output, t[rows])

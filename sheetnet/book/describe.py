@@ -1,0 +1,94 @@
+"""The workbook's description of itself: its :class:`BookSpec`, sheet and name list, and
+fingerprints of what the build wrote, stored as JSON on a hidden sheet.
+
+Verification and audit rebuild the layout from this description alone, so it must carry every
+structural choice (shapes, activations, loss, schedule of the training record).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Any
+
+from sheetnet.book.layout import BookLayout
+from sheetnet.book.spec import BookSpec, RecordSpec
+from sheetnet.errors import WorkbookFormatError
+from sheetnet.net.activations import Activation
+
+FORMAT = "sheetnet-layout"
+VERSION = 1
+
+
+class Fingerprints:
+    """Running SHA-256 digests of every sheet's formulas and input values, in writing order."""
+
+    def __init__(self) -> None:
+        self.formulas: dict[str, Any] = {}
+        self.inputs: dict[str, Any] = {}
+
+    def add(self, sheet: str, row: int, col: int, role: str, content: object) -> None:
+        target = self.formulas if role == "formula" else self.inputs if role == "input" else None
+        if target is None:
+            return
+        digest = target.setdefault(sheet, hashlib.sha256())
+        digest.update(f"{row},{col},{content!r}\n".encode())
+
+    def to_dict(self) -> dict[str, dict[str, str]]:
+        return {"formulas": {k: v.hexdigest() for k, v in sorted(self.formulas.items())},
+                "inputs": {k: v.hexdigest() for k, v in sorted(self.inputs.items())}}
+
+
+def spec_to_dict(spec: BookSpec) -> dict[str, Any]:
+    record = None
+    if spec.record is not None:
+        record = {"steps": [list(s) for s in spec.record.steps], "epochs": list(spec.record.epochs),
+                  "momentum": spec.record.momentum, "l2": spec.record.l2}
+    return {
+        "inputs": list(spec.inputs), "outputs": list(spec.outputs), "units": list(spec.units),
+        "activations": [a.to_dict() for a in spec.activations], "loss": spec.loss, "task": spec.task,
+        "classes": list(spec.classes), "target": list(spec.target), "target_kind": spec.target_kind,
+        "n_cases": spec.n_cases, "sets": list(spec.sets), "record": record,
+        "scaling_method": spec.scaling_method, "provenance": [list(p) for p in spec.provenance],
+    }
+
+
+def spec_from_dict(data: dict[str, Any]) -> BookSpec:
+    try:
+        raw = data["record"]
+        record = None if raw is None else RecordSpec(
+            steps=tuple(tuple(int(c) for c in s) for s in raw["steps"]), epochs=tuple(int(e) for e in raw["epochs"]),
+            momentum=bool(raw["momentum"]), l2=bool(raw["l2"]))
+        return BookSpec(
+            inputs=tuple(data["inputs"]), outputs=tuple(data["outputs"]), units=tuple(int(u) for u in data["units"]),
+            activations=tuple(Activation(**a) for a in data["activations"]), loss=data["loss"], task=data["task"],
+            classes=tuple(data["classes"]), target=tuple(data["target"]), target_kind=data["target_kind"],
+            n_cases=int(data["n_cases"]), sets=tuple(data["sets"]), record=record,
+            scaling_method=data.get("scaling_method", "none"),
+            provenance=tuple(tuple(p) for p in data.get("provenance", [])))
+    except (KeyError, TypeError, ValueError) as exc:
+        raise WorkbookFormatError(f"the workbook's layout description is damaged ({exc!r})") from None
+
+
+def describe(layout: BookLayout, sheets: list[str], fingerprints: Fingerprints) -> str:
+    """The JSON text stored on the hidden layout sheet."""
+    from sheetnet import __version__
+
+    names = {name: block.__dict__ for name, block in layout.defined_names().items()}
+    return json.dumps({
+        "format": FORMAT, "version": VERSION, "tool": f"sheetnet {__version__}",
+        "spec": spec_to_dict(layout.spec), "sheets": sheets, "names": names,
+        "fingerprints": fingerprints.to_dict(),
+    }, separators=(",", ":"), sort_keys=True)
+
+
+def parse_description(text: str) -> dict[str, Any]:
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError:
+        raise WorkbookFormatError("the workbook's layout description is not valid JSON") from None
+    if not isinstance(data, dict) or data.get("format") != FORMAT:
+        raise WorkbookFormatError("not a sheetnet workbook (no layout description)")
+    if data.get("version") != VERSION:
+        raise WorkbookFormatError(f"layout description version {data.get('version')!r} is not supported")
+    return data

@@ -1,0 +1,200 @@
+"""Pure builders of formula text, one per kind of cell, over a small shared vocabulary.
+
+Arguments are reference texts already rendered by ``addresses``; results start with ``=``.
+Only functions that Excel, LibreOffice and the ``formulas`` package all evaluate the same way
+are used: SUMPRODUCT, SUMXMY2, AVERAGE, AVERAGEIFS, COUNT, COUNTIFS, EXP, LN, TANH, MAX, IF,
+INDEX, MATCH, SQRT, ABS. Every form mirrors the trainer's arithmetic (same stable sigmoid and
+softmax, same probability clip) so both agree to rounding.
+"""
+
+from __future__ import annotations
+
+from sheetnet.net.activations import PROBABILITY_CLIP, Activation
+
+
+def number(value: float) -> str:
+    """A float literal that round-trips exactly (17 significant digits where needed)."""
+    text = repr(float(value)).upper()
+    if text.endswith(".0"):
+        text = text[:-2]
+    return f"({text})" if text.startswith("-") else text
+
+
+def text_literal(value: str) -> str:
+    """A string literal: quotes doubled, so data text can never become formula code."""
+    return '"' + value.replace('"', '""') + '"'
+
+
+def label_literal(label: str) -> str:
+    """A class label as it is stored in the data: a number when it reads as one, else text."""
+    try:
+        return number(float(label))
+    except ValueError:
+        return text_literal(label)
+
+
+CLIP = number(PROBABILITY_CLIP)
+
+
+def reference(source: str) -> str:
+    """A plain link to another cell."""
+    return f"={source}"
+
+
+def scaled_input(raw: str, offset: str, divisor: str) -> str:
+    return f"=({raw}-{offset})/{divisor}"
+
+
+def weighted_sum(weights: str, inputs: str, bias: str) -> str:
+    """z = SUMPRODUCT(weight row, input row) + bias."""
+    return f"=SUMPRODUCT({weights},{inputs})+{bias}"
+
+
+def _sigmoid_argument(act: Activation, z: str) -> str:
+    if act.steepness == 1.0 and act.midpoint == 0.0:
+        return z
+    return f"({number(act.steepness)}*({z}-{number(act.midpoint)}))"
+
+
+def activation(act: Activation, z: str, softmax_max: str = "", softmax_sum: str = "") -> str:
+    """a = f(z); the sigmoid in its two-branch form that never overflows."""
+    if act.name == "sigmoid":
+        u = _sigmoid_argument(act, z)
+        return f"=IF({u}>=0,1/(1+EXP(-{u})),EXP({u})/(1+EXP({u})))"
+    if act.name == "tanh":
+        return f"=TANH({z})"
+    if act.name == "relu":
+        return f"=MAX({z},0)"
+    if act.name == "identity":
+        return f"={z}"
+    if act.name == "step":
+        return f"=IF({z}>={number(act.midpoint)},1,0)"
+    return f"=EXP({z}-{softmax_max})/{softmax_sum}"
+
+
+def softmax_max(z_range: str) -> str:
+    return f"=MAX({z_range})"
+
+
+def softmax_sum(z_range: str, max_cell: str) -> str:
+    return f"=SUMPRODUCT(EXP({z_range}-{max_cell}))"
+
+
+def derivative(act: Activation, z: str, a: str) -> str:
+    """f'(z) as an expression (no ``=``), written from the activation where it can be."""
+    if act.name == "sigmoid":
+        core = f"{a}*(1-{a})"
+        return core if act.steepness == 1.0 else f"{number(act.steepness)}*{core}"
+    if act.name == "tanh":
+        return f"(1-{a}^2)"
+    if act.name == "relu":
+        return f"IF({z}>0,1,0)"
+    if act.name == "identity":
+        return "1"
+    raise ValueError(f"no derivative formula for {act.name!r}")
+
+
+def output_delta(loss: str, act: Activation, z: str, y: str, t: str, y_range: str = "", t_range: str = "") -> str:
+    """dE/dz of one output unit; canonical pairs reduce to y - t (times the sigmoid steepness)."""
+    if loss == "cross-entropy":
+        if act.name == "sigmoid" and act.steepness != 1.0:
+            return f"={number(act.steepness)}*({y}-{t})"
+        return f"={y}-{t}"
+    if act.name == "softmax":
+        return f"={y}*(({y}-{t})-SUMPRODUCT({y_range}-{t_range},{y_range}))"
+    if act.name == "identity":
+        return f"={y}-{t}"
+    return f"={derivative(act, z, y)}*({y}-{t})"
+
+
+def hidden_delta(act: Activation, z: str, a: str, terms: list[tuple[str, str]]) -> str:
+    """delta_j = f'(z_j) * sum_k w_kj delta_k, with the sum written out term by term."""
+    total = "+".join(f"{w}*{d}" for w, d in terms)
+    factor = derivative(act, z, a)
+    return f"=({total})" if factor == "1" else f"={factor}*({total})"
+
+
+def loss(kind: str, act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
+    """Per-case loss: 1/2 sum (t-y)^2, or cross-entropy with the probability clip inside LN."""
+    if kind == "squared":
+        return f"=0.5*SUMXMY2({t_range},{y_range})"
+    if act.name == "softmax":
+        terms = [f"{t}*LN(MAX({y},{CLIP}))" for y, t in zip(ys, ts, strict=True)]
+    else:
+        terms = [f"{t}*LN(MAX({y},{CLIP}))+(1-{t})*LN(MAX(1-{y},{CLIP}))" for y, t in zip(ys, ts, strict=True)]
+    return "=-(" + "+".join(terms) + ")"
+
+
+def correct(task: str, ys: list[str], ts: list[str], y_range: str, t_range: str, threshold: str = "0.5") -> str:
+    """1 when the case is classified right: arg-max match (multiclass) or every output on the
+    same side of the threshold as its target (binary, multilabel)."""
+    if task == "multiclass":
+        return f"=IF(MATCH(MAX({y_range}),{y_range},0)=MATCH(MAX({t_range}),{t_range},0),1,0)"
+    sides = [f"IF(({y}>={threshold})=({t}>=0.5),1,0)" for y, t in zip(ys, ts, strict=True)]
+    return "=" + "*".join(sides)
+
+
+def encode_label(label_cell: str, label: str) -> str:
+    return f"=IF({label_cell}={label_literal(label)},1,0)"
+
+
+def predicted_binary(p: str, threshold: str, negative: str, positive: str) -> str:
+    return f"=IF({p}>={threshold},{label_literal(positive)},{label_literal(negative)})"
+
+
+def predicted_multiclass(y_range: str, labels: str) -> str:
+    return f"=INDEX({labels},MATCH(MAX({y_range}),{y_range},0))"
+
+
+def predicted_flag(p: str, threshold: str) -> str:
+    return f"=IF({p}>={threshold},1,0)"
+
+
+def contribution(delta: str, source: str) -> str:
+    """One case's share of a weight gradient: delta_j * a_i."""
+    return f"={delta}*{source}"
+
+
+def gradient(mean_of: str, weight: str = "", l2: str = "") -> str:
+    """A step's gradient: the delta-times-input (batch of 1) or the AVERAGE of contributions,
+    plus the L2 term on weights."""
+    penalty = f"+{l2}*{weight}" if l2 and weight else ""
+    return f"={mean_of}{penalty}"
+
+
+def velocity(previous: str, grad: str, lr: str, momentum: str) -> str:
+    """v = momentum * v_prev - lr * g (v_prev empty on the first step)."""
+    return f"={momentum}*{previous}-{lr}*{grad}" if previous else f"=-{lr}*{grad}"
+
+
+def update(previous: str, grad: str, lr: str) -> str:
+    """w_new = w_prev - lr * g."""
+    return f"={previous}-{lr}*{grad}"
+
+
+def update_with_velocity(previous: str, vel: str) -> str:
+    return f"={previous}+{vel}"
+
+
+def average(range_text: str) -> str:
+    return f"=AVERAGE({range_text})"
+
+
+def average_if(values: str, criteria_range: str, criterion: str) -> str:
+    return f"=AVERAGEIFS({values},{criteria_range},{text_literal(criterion)})"
+
+
+def count(range_text: str) -> str:
+    return f"=COUNT({range_text})"
+
+
+def count_pairs(true_range: str, true_criterion: str, pred_range: str, pred_criterion: str) -> str:
+    return f"=COUNTIFS({true_range},{true_criterion},{pred_range},{pred_criterion})"
+
+
+def rmse(pred_range: str, target_range: str) -> str:
+    return f"=SQRT(SUMXMY2({pred_range},{target_range})/COUNT({target_range}))"
+
+
+def mae(pred_range: str, target_range: str) -> str:
+    return f"=SUMPRODUCT(ABS({pred_range}-{target_range}))/COUNT({target_range})"
