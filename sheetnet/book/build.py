@@ -122,6 +122,7 @@ def provenance(model: Model, table: dataio.Table | None, settings: TrainSettings
     if table is not None:
         lines += [("data file", Path(table.source).name), ("data SHA-256", fingerprint(table)),
                   ("data rows", str(len(table.rows)))]
+        lines += [("data note", note) for note in table.notes]
     if settings is not None:
         lines += [("training settings", ", ".join(f"{k}={v}" for k, v in settings.to_dict().items()))]
         lines += [("record", f"epochs {options.epochs or settings.epochs}, rows "

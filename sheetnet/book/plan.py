@@ -41,6 +41,7 @@ class Entry:
     content: object
     value: object = None
     note: str | None = None
+    style: str = ""  # a display hint for the writer: "count", "ratio" or "data"
 
 
 def activation_text(act: Activation) -> str:
@@ -302,9 +303,9 @@ def _scoring_row(layout: BookLayout, numbers: Numbers, n: int, refs: RowRefs) ->
     yield Entry(row, table.col(("case",)), "label", n + 1)
     yield Entry(row, table.col(("set",)), "label", spec.sets[n])
     for i in range(len(spec.inputs)):
-        yield Entry(row, table.col(("raw", i)), "input", data[i])
+        yield Entry(row, table.col(("raw", i)), "input", data[i], style="data")
     for c in range(len(spec.target)):
-        yield Entry(row, table.col(("target", c)), "input", data[len(spec.inputs) + c])
+        yield Entry(row, table.col(("target", c)), "input", data[len(spec.inputs) + c], style="data")
     if spec.encodes_targets:
         for k, label in enumerate(spec.positive_labels):
             yield Entry(row, table.col(("t", k)), "formula", fx.encode_label(ref(cell(("target", 0)), here), label),
@@ -344,7 +345,7 @@ def summary_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     spec, table, summary, scored = layout.spec, layout.scoring, layout.summary, numbers.scoring
     col = lambda key: range_ref(table.column_block(key), SCORING, absolute=True)  # noqa: E731
     yield Entry(summary.count.row, 0, "label", "cases")
-    yield Entry(summary.count.row, 1, "formula", fx.count(col(("case",))), float(spec.n_cases))
+    yield Entry(summary.count.row, 1, "formula", fx.count(col(("case",))), float(spec.n_cases), style="count")
     if summary.mean_loss is not None:
         yield Entry(summary.mean_loss.row, 0, "label", "mean loss")
         yield Entry(summary.mean_loss.row, 1, "formula", fx.average(col(("loss",))), float(np.mean(scored.loss)))
@@ -352,10 +353,11 @@ def summary_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     for name, cell in summary.accuracy.items():
         yield Entry(cell.row, 0, "label", f"accuracy ({name} cases)")
         if name == "all":
-            yield Entry(cell.row, 1, "formula", fx.average(col(("correct",))), float(np.mean(scored.correct)))
+            yield Entry(cell.row, 1, "formula", fx.average(col(("correct",))), float(np.mean(scored.correct)),
+                        style="ratio")
         else:
             yield Entry(cell.row, 1, "formula", fx.average_if(col(("correct",)), col(("set",)), name),
-                        float(np.mean(scored.correct[sets == name])))
+                        float(np.mean(scored.correct[sets == name])), style="ratio")
     last = spec.n_layers - 1
     for k, (rmse_cell, mae_cell) in enumerate(zip(summary.rmse, summary.mae, strict=True)):
         pred, target = col(("a", last, k)), col(("target", k))
@@ -386,7 +388,8 @@ def _confusion_entries(layout: BookLayout, numbers: Numbers, col) -> Iterator[En
                                                                      fx.text_literal("<0.5"))
         for j, predicted in enumerate(spec.classes):
             formula = fx.count_pairs(col(("target", 0)), true_crit, col(("pred",)), _criterion(predicted))
-            yield Entry(block.top + i, block.left + j, "formula", formula, float(np.sum((truth == i) & (pred == j))))
+            yield Entry(block.top + i, block.left + j, "formula", formula, float(np.sum((truth == i) & (pred == j))),
+                        style="count")
 
 
 # ---------------------------------------------------------------- Training record
@@ -584,7 +587,8 @@ def epoch_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         yield Entry(row, table.col(("loss",)), "formula", fx.average(loss_range), result.epoch_loss[e])
         if spec.is_classification:
             acc_range = range_ref(record.column_block(("correct",), first, count), EPOCHS)
-            yield Entry(row, table.col(("accuracy",)), "formula", fx.average(acc_range), result.epoch_accuracy[e])
+            yield Entry(row, table.col(("accuracy",)), "formula", fx.average(acc_range), result.epoch_accuracy[e],
+                        style="ratio")
 
 
 def _epoch_rows(layout: BookLayout) -> list[tuple[int, int]]:

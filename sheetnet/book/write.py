@@ -48,12 +48,19 @@ class _Sheet(Worksheet):
         return formula[1:] if formula.startswith("=") else formula
 
 
+HINTS = {"count": {"num_format": "0"}, "ratio": {"num_format": "0.0000"}, "data": {"num_format": "General"}}
+
+
 def _formats(book: xlsxwriter.Workbook) -> dict:
-    return {role: book.add_format(props) for role, props in STYLE.items()}
+    formats = {role: book.add_format(props) for role, props in STYLE.items()}
+    for role, props in STYLE.items():
+        for hint, extra in HINTS.items():
+            formats[role, hint] = book.add_format({**props, **extra})
+    return formats
 
 
 def _write(sheet: Worksheet, entry: Entry, formats: dict) -> None:
-    fmt = formats[entry.role]
+    fmt = formats[entry.role, entry.style] if entry.style else formats[entry.role]
     if entry.role == "formula":
         value = entry.value
         if isinstance(value, float | np.floating | int):
@@ -88,18 +95,29 @@ def write_entries(sheet: Worksheet, entries: Iterable[Entry], formats: dict, ord
 def _guide(book, formats, layout: BookLayout, names: dict) -> None:
     sheet = book.add_worksheet(L.GUIDE, worksheet_class=_Sheet)
     sheet.set_column(0, 0, 30)
-    sheet.set_column(1, 1, 120, book.add_format({"text_wrap": True, "valign": "top"}))
+    sheet.set_column(1, 1, 100)
+    sheet.fit_to_pages(1, 0)
+    wrapped = {role: book.add_format({**STYLE[role], "text_wrap": True, "valign": "top"}) for role in ("text", "label")}
     for row, (role, left, right) in enumerate(guide_lines(layout, names)):
+        lines = max(1, -(-len(right) // 105))
+        if lines > 1:
+            sheet.set_row(row, 15 * lines)
         if left:
             sheet.write_string(row, 0, left, formats[role])
         if right:
-            sheet.write_string(row, 1, right, formats["text" if role == "text" else "label"])
+            sheet.write_string(row, 1, right, wrapped["text" if role == "text" else "label"])
 
 
-def _sheet(book, name: str, widths: tuple[int, int] = (22, 14)) -> Worksheet:
+def _sheet(book, name: str, widths: tuple[int, int] = (22, 14), header_row: int | None = None) -> Worksheet:
     sheet = book.add_worksheet(name, worksheet_class=_Sheet)
     sheet.set_column(0, 0, widths[0])
     sheet.set_column(1, 16383, widths[1])
+    sheet.set_landscape()
+    sheet.set_paper(9)  # A4
+    if header_row is None:
+        sheet.fit_to_pages(1, 0)
+    else:
+        sheet.repeat_rows(header_row)
     return sheet
 
 
@@ -146,21 +164,24 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with) 
     formats = _formats(book)
     names = layout.defined_names()
     tally = Tally()
-    sheets = [(L.PARAMETERS, plan.parameter_entries, (22, 14), None, False),
-              (L.CALCULATOR, plan.calculator_entries, (22, 14), None, False)]
-    if layout.spec.n_cases:
-        sheets.append((L.SCORING, plan.scoring_entries, (10, 13), (layout.scoring.first_row, 2), True))
+    spec = layout.spec
+    wide = min(40, max(14, 2 + max(len(n) for n in (*spec.inputs, *spec.outputs, *spec.target))))
+    sheets = [(L.PARAMETERS, plan.parameter_entries, (22, wide), None, False),
+              (L.CALCULATOR, plan.calculator_entries, (22, wide), None, False)]
+    if spec.n_cases:
+        sheets.append((L.SCORING, plan.scoring_entries, (22, wide), (layout.scoring.first_row, 2), True))
     if layout.record is not None:
-        sheets += [(L.SETUP, plan.setup_entries, (26, 14), None, False),
-                   (L.RECORD, plan.record_entries, (7, 14), (layout.record.first_row, 3), True),
+        sheets += [(L.SETUP, plan.setup_entries, (26, wide), None, False),
+                   (L.RECORD, plan.record_entries, (7, 16), (layout.record.first_row, 3), True),
                    (L.EPOCHS, plan.epoch_entries, (10, 14), (layout.epochs.first_row, 1), False)]
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         _guide(book, formats, layout, names)
         for name, entries, widths, freeze, ordered in sheets:
-            sheet = _sheet(book, name, widths)
+            sheet = _sheet(book, name, widths, None if freeze is None else freeze[0] - 1)
             if freeze:
                 sheet.freeze_panes(*freeze)
+                sheet.set_row(freeze[0] - 1, 48)  # room for wrapped column headers
             write_entries(sheet, tally.stream(name, entries(layout, numbers)), formats, ordered=ordered)
             if name == L.EPOCHS:
                 _epochs_chart(book, sheet, layout)

@@ -35,6 +35,7 @@ class Table:
     header: tuple[str, ...]
     rows: tuple[tuple[str, ...], ...]
     lines: tuple[int, ...]
+    notes: tuple[str, ...] = ()
 
     def column(self, name: str) -> list[str]:
         index = self.header.index(name)
@@ -64,13 +65,15 @@ def read_csv(path: str | Path) -> Table:
     dialect = _sniff(text)
     reader = csv.reader(io.StringIO(text, newline=""), dialect)
     header: tuple[str, ...] | None = None
-    rows, lines = [], []
+    rows, lines, notes = [], [], []
     try:
         for cells in reader:
             if not any(c.strip() for c in cells):
                 continue
             if header is None and cells[0].lstrip().startswith("#"):
-                continue  # comment lines before the header (e.g. a note that the data is invented)
+                # comment lines before the header (e.g. a note that the data is invented)
+                notes.append(reader.dialect.delimiter.join(cells).lstrip("# ").strip())
+                continue
             if header is None:
                 header = _check_header(path, cells, reader.line_num)
                 continue
@@ -84,7 +87,7 @@ def read_csv(path: str | Path) -> Table:
         raise DataError(f"{path}: the file is empty")
     if not rows:
         raise DataError(f"{path}: the file has a header but no data rows")
-    return Table(source=str(path), header=header, rows=tuple(rows), lines=tuple(lines))
+    return Table(source=str(path), header=header, rows=tuple(rows), lines=tuple(lines), notes=tuple(notes))
 
 
 def _read_text(path: Path) -> str:

@@ -1,0 +1,192 @@
+"""The workbook: every formula recomputed by engines that are not sheetnet's code equals the trainer."""
+
+from __future__ import annotations
+
+import json
+import zipfile
+from pathlib import Path
+
+import numpy as np
+import openpyxl
+import pytest
+
+from sheetnet.net.model import load_model
+from tests.bookcheck import (
+    block_values,
+    cached_values,
+    formula_cells,
+    formulas_package_values,
+    mismatches,
+)
+from tests.conftest import write_csv
+
+RNG = np.random.default_rng(42)
+
+
+def _rows(n, labels):
+    x = RNG.normal(0, 1, (n, 2)).round(3)
+    return [[*row, labels[i % len(labels)]] for i, row in enumerate(x.tolist())]
+
+
+DATASETS = {
+    "binary": (["a", "b", "label"], _rows(6, ["yes", "no"])),
+    "three": (["a", "b", "kind"], _rows(6, ["red", "green", "blue"])),
+    "numeric": (["a", "b", "y1", "y2"], [[*r[:2], round(r[0] * 0.5 + 0.1, 3), round(r[1] - r[0], 3)]
+                                        for r in _rows(6, ["-"])]),
+    "multilabel": (["a", "b", "p", "q"], [[*r[:2], i % 2, (i // 2) % 2] for i, r in enumerate(_rows(6, ["-"]))]),
+}
+
+CONFIGS = {
+    "binary-ce-batch1": ("binary", ["--target", "label", "--hidden", "2", "--epochs", "2", "--lr", "0.5",
+                                    "--no-shuffle"]),
+    "softmax-ce-batch3-momentum-l2": ("three", ["--target", "kind", "--hidden", "3", "--activation", "tanh",
+                                                "--batch-size", "3", "--epochs", "2", "--momentum", "0.5",
+                                                "--l2", "0.01"]),
+    "regression-relu-full": ("numeric", ["--target", "y1,y2", "--hidden", "3", "--activation", "relu",
+                                         "--batch-size", "full", "--epochs", "3", "--scale", "minmax"]),
+    "multilabel-steep": ("multilabel", ["--target", "p,q", "--hidden", "2", "--steepness", "2", "--midpoint", "0.5",
+                                        "--batch-size", "4", "--epochs", "2"]),
+    "softmax-squared-two-layers": ("three", ["--target", "kind", "--hidden", "2,2", "--loss", "squared",
+                                             "--epochs", "1", "--batch-size", "2", "--scale", "none"]),
+    "sigmoid-squared": ("binary", ["--target", "label", "--hidden", "2", "--output", "sigmoid", "--loss", "squared",
+                                   "--epochs", "2", "--batch-size", "2"]),
+}
+
+
+def build(tmp_path: Path, run_cli, dataset: str, flags: list[str], name: str = "book.xlsx") -> Path:
+    header, rows = DATASETS[dataset]
+    data = write_csv(tmp_path / f"{dataset}.csv", header, rows)
+    out = tmp_path / name
+    code, stdout, err = run_cli("build", data, *flags, "-o", out)
+    assert code == 0, err
+    return out
+
+
+def defined_block(path: Path, name: str) -> tuple[str, str, int, int]:
+    """(sheet, top-left, rows, cols) of a workbook-scoped defined name, read from the file."""
+    from openpyxl.utils.cell import range_boundaries
+
+    book = openpyxl.load_workbook(path)
+    ((sheet, rng),) = list(book.defined_names[name].destinations)
+    min_col, min_row, max_col, max_row = range_boundaries(rng.replace("$", ""))
+    from openpyxl.utils.cell import get_column_letter
+
+    return sheet, f"{get_column_letter(min_col)}{min_row}", max_row - min_row + 1, max_col - min_col + 1
+
+
+@pytest.mark.parametrize("config", sorted(CONFIGS))
+def test_every_formula_recomputed_by_formulas_package_equals_trainer(config, tmp_path, run_cli):
+    dataset, flags = CONFIGS[config]
+    book = build(tmp_path, run_cli, dataset, flags)
+    cells = formula_cells(book)
+    assert len(cells) > 50
+    # Oracle: the `formulas` package (vinci1it2000/formulas), an Excel formula engine outside this project,
+    # recomputes every cell; the cached values are the numpy trainer's; tolerance 1e-9.
+    bad = mismatches(cached_values(book), formulas_package_values(book), cells)
+    assert not bad, bad[:5]
+
+
+def test_final_block_equals_trained_model(tmp_path, run_cli):
+    dataset, flags = CONFIGS["softmax-ce-batch3-momentum-l2"]
+    book = build(tmp_path, run_cli, dataset, flags)
+    header, rows = DATASETS[dataset]
+    code, _, _ = run_cli("train", tmp_path / f"{dataset}.csv", *flags, "-o", tmp_path / "m.json")
+    assert code == 0
+    model = load_model(tmp_path / "m.json")
+    for k, layer in enumerate(model.layers, start=1):
+        sheet, corner, rows_, cols = defined_block(book, f"final_W_{k}")
+        np.testing.assert_allclose(block_values(book, sheet, corner, rows_, cols), layer.weights, atol=1e-12)
+        sheet, corner, rows_, cols = defined_block(book, f"W_{k}")
+        np.testing.assert_allclose(block_values(book, sheet, corner, rows_, cols), layer.weights, atol=0)
+
+
+def test_defined_names_cover_every_block(tmp_path, run_cli):
+    book = build(tmp_path, run_cli, *CONFIGS["softmax-ce-batch3-momentum-l2"])
+    names = set(openpyxl.load_workbook(book).defined_names)
+    expected = {f"{p}{m}_{k}" for p in ("", "init_", "final_") for m in ("W", "b") for k in (1, 2)}
+    assert expected | {"learning_rate", "momentum", "l2_penalty", "scale_offset", "scale_divisor", "threshold",
+                       "class_labels"} <= names
+    assert defined_block(book, "W_1")[2:] == (3, 2) and defined_block(book, "b_2")[2:] == (3, 1)
+
+
+def test_two_builds_are_byte_identical(tmp_path, run_cli):
+    dataset, flags = CONFIGS["binary-ce-batch1"]
+    first = build(tmp_path, run_cli, dataset, flags, "one.xlsx")
+    second = build(tmp_path, run_cli, dataset, flags, "two.xlsx")
+    assert first.read_bytes() == second.read_bytes()
+
+
+def test_text_from_the_data_stays_text(tmp_path, run_cli):
+    tricky = ["=1+1", "+SUM(A1)", "-2+3", "@cmd"]
+    rows = [[0.1 * i, 1 - 0.2 * i, tricky[(i // 2) % 4] if i % 2 else "plain"] for i in range(8)]
+    data = write_csv(tmp_path / "d.csv", ["=x", "+y", "label"], rows)
+    out = tmp_path / "b.xlsx"
+    code, _, err = run_cli("build", data, "--target", "label", "--task", "multiclass", "--epochs", "1", "-o", out)
+    assert code == 0, err
+    book = openpyxl.load_workbook(out)
+    texts = [c for ws in book.worksheets for row in ws.iter_rows() for c in row
+             if isinstance(c.value, str) and c.value in (*tricky, "=x", "+y")]
+    assert texts and all(c.data_type == "s" for c in texts)
+    assert {c.value for c in texts} >= {*tricky, "=x", "+y"}
+
+
+def test_formula_limits_hold(tmp_path, run_cli):
+    from openpyxl.formula.tokenizer import Tokenizer
+
+    book = build(tmp_path, run_cli, *CONFIGS["softmax-squared-two-layers"])
+    for formula in formula_cells(book).values():
+        # Limits: Microsoft Support, "Excel specifications and limits": 8,192 characters, 64 nesting levels,
+        # 255 arguments per function (the last two secondary, per the project's REFERENCES §8).
+        assert len(formula) <= 8192
+        depth, deepest, args = 0, 0, [0]
+        for token in Tokenizer(formula).items:
+            if token.type == "FUNC" and token.subtype == "OPEN":
+                depth += 1
+                args.append(1)
+            elif token.type == "FUNC" and token.subtype == "CLOSE":
+                depth -= 1
+                assert args.pop() <= 255
+            elif token.type == "SEP" and token.subtype == "ARG":
+                args[-1] += 1
+            deepest = max(deepest, depth)
+        assert deepest <= 64
+
+
+def test_cell_cap_refuses_and_writes_nothing(tmp_path, run_cli):
+    header, rows = DATASETS["binary"]
+    data = write_csv(tmp_path / "d.csv", header, rows)
+    code, _, err = run_cli("build", data, "--target", "label", "--epochs", "50", "--max-cells", "500",
+                           "-o", tmp_path / "b.xlsx")
+    assert code == 1 and "--trace-epochs" in err and "--max-cells" in err
+    assert not (tmp_path / "b.xlsx").exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["d.csv"]
+
+
+def test_layout_description_is_stored(tmp_path, run_cli):
+    from sheetnet.book.describe import parse_description, spec_from_dict
+
+    book = build(tmp_path, run_cli, *CONFIGS["binary-ce-batch1"])
+    sheet = openpyxl.load_workbook(book)["sheetnet_layout"]
+    assert sheet.sheet_state == "hidden"
+    text = "".join(c.value for (c,) in sheet.iter_rows(min_row=2, max_col=1) if c.value)
+    data = parse_description(text)
+    spec = spec_from_dict(data["spec"])
+    assert spec.units == (2, 1) and spec.record.n_rows == 12 and data["fingerprints"]["formulas"]
+
+
+def test_no_macros_links_or_volatile_functions(tmp_path, run_cli):
+    book = build(tmp_path, run_cli, *CONFIGS["multilabel-steep"])
+    names = zipfile.ZipFile(book).namelist()
+    assert not [n for n in names if "vba" in n.lower() or "externalLink" in n]
+    volatile = ("INDIRECT(", "OFFSET(", "NOW(", "TODAY(", "RAND(", "RANDBETWEEN(")
+    assert not [f for f in formula_cells(book).values() if any(v in f.upper() for v in volatile)]
+
+
+def test_model_without_data_gives_parameters_and_calculator(tmp_path, run_cli):
+    model = {"format": "sheetnet-model", "version": 1, "inputs": ["u", "v"], "outputs": ["y"], "task": "regression",
+             "layers": [{"weights": [[0.5, -1.0]], "bias": [0.25], "activation": "identity"}]}
+    (tmp_path / "m.json").write_text(json.dumps(model))
+    out = tmp_path / "b.xlsx"
+    code, _, err = run_cli("build", "--model", tmp_path / "m.json", "-o", out)
+    assert code == 0, err
+    assert openpyxl.load_workbook(out).sheetnames == ["Guide", "Parameters", "Calculator", "sheetnet_layout"]
