@@ -57,7 +57,7 @@ def build(tmp_path: Path, run_cli, dataset: str, flags: list[str], name: str = "
     header, rows = DATASETS[dataset]
     data = write_csv(tmp_path / f"{dataset}.csv", header, rows)
     out = tmp_path / name
-    code, stdout, err = run_cli("build", data, *flags, "-o", out)
+    code, _stdout, err = run_cli("build", data, *flags, "-o", out)
     assert code == 0, err
     return out
 
@@ -89,7 +89,6 @@ def test_every_formula_recomputed_by_formulas_package_equals_trainer(config, tmp
 def test_final_block_equals_trained_model(tmp_path, run_cli):
     dataset, flags = CONFIGS["softmax-ce-batch3-momentum-l2"]
     book = build(tmp_path, run_cli, dataset, flags)
-    header, rows = DATASETS[dataset]
     code, _, _ = run_cli("train", tmp_path / f"{dataset}.csv", *flags, "-o", tmp_path / "m.json")
     assert code == 0
     model = load_model(tmp_path / "m.json")

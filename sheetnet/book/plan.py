@@ -192,6 +192,14 @@ def table_refs(table: Table, i: int, spec: BookSpec, weights, bias, x_key: tuple
 # ---------------------------------------------------------------- Calculator
 
 
+def scaled_entry(layout: BookLayout, i: int, raw: Cell, target: Cell, value: float) -> Entry:
+    """scaled = (raw - offset) / divisor, with the constants of input ``i`` on the Parameters sheet."""
+    here = target.sheet
+    formula = fx.scaled_input(ref(raw, here), ref(layout.offset.cell(0, i), here, True),
+                              ref(layout.divisor.cell(0, i), here, True))
+    return Entry(target.row, target.col, "formula", formula, value)
+
+
 def calculator_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     spec, calc, inputs = layout.spec, layout.calculator, numbers.inputs
     yield Entry(0, 0, "title", "Calculator: type raw inputs in the yellow cells; everything below is formulas")
@@ -202,10 +210,8 @@ def calculator_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     yield Entry(4, 0, "label", "scaled input")
     for i in range(len(spec.inputs)):
         yield Entry(3, calc.raw.left + i, "input", float(inputs.calculator[i]))
-        yield Entry(4, calc.scaled.left + i, "formula",
-                    fx.scaled_input(ref(calc.raw.cell(0, i), CALCULATOR), ref(layout.offset.cell(0, i), CALCULATOR, True),
-                                    ref(layout.divisor.cell(0, i), CALCULATOR, True)),
-                    numbers.calculator.x[0, i])
+    for i in range(len(spec.inputs)):
+        yield scaled_entry(layout, i, calc.raw.cell(0, i), calc.scaled.cell(0, i), numbers.calculator.x[0, i])
     if layout.threshold is not None:
         yield Entry(layout.threshold.row, 0, "label", "decision threshold")
         yield Entry(layout.threshold.row, layout.threshold.col, "input", float(inputs.threshold))
@@ -311,9 +317,7 @@ def _scoring_row(layout: BookLayout, numbers: Numbers, n: int, refs: RowRefs) ->
             yield Entry(row, table.col(("t", k)), "formula", fx.encode_label(ref(cell(("target", 0)), here), label),
                         scored.t[n, k])
     for i in range(len(spec.inputs)):
-        yield Entry(row, table.col(("x", i)), "formula",
-                    fx.scaled_input(ref(cell(("raw", i)), here), ref(layout.offset.cell(0, i), here, True),
-                                    ref(layout.divisor.cell(0, i), here, True)), scored.x[n, i])
+        yield scaled_entry(layout, i, cell(("raw", i)), cell(("x", i)), scored.x[n, i])
     yield from network_entries(spec, refs, cell, scored, n)
     yield from _outcome_entries(spec, table, n, scored, refs, "threshold", numbers.inputs.threshold)
 
