@@ -32,7 +32,8 @@ RNG = np.random.default_rng(5)
 def _numeric_csv(tmp_path: Path, n: int = 10) -> Path:
     x = RNG.uniform(-2, 2, (n, 3)).round(3)
     y = (np.sin(x[:, 0]) + 0.5 * x[:, 1] * x[:, 2]).round(3)
-    return write_csv(tmp_path / "num.csv", ["p", "q", "r", "y"], [[*row, t] for row, t in zip(x.tolist(), y, strict=True)])
+    rows = [[*row, t] for row, t in zip(x.tolist(), y, strict=True)]
+    return write_csv(tmp_path / "num.csv", ["p", "q", "r", "y"], rows)
 
 
 def _class_csv(tmp_path: Path, n: int = 60) -> Path:
