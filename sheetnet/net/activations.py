@@ -53,12 +53,14 @@ class Activation:
 
 
 def stable_sigmoid(u: np.ndarray) -> np.ndarray:
-    """1/(1+e^-u) for u >= 0 and e^u/(1+e^u) below: no overflow for any finite u."""
-    out = np.empty_like(u, dtype=float)
-    positive = u >= 0
-    out[positive] = 1.0 / (1.0 + np.exp(-u[positive]))
-    e = np.exp(u[~positive])
-    out[~positive] = e / (1.0 + e)
+    """1/(1+e^-u) for u >= 0 and e^u/(1+e^u) below, both as (1 or e^-|u|) / (1 + e^-|u|):
+    no overflow for any finite u, and the same two branches as the spreadsheet formula."""
+    e = np.abs(u)
+    np.negative(e, out=e)
+    np.exp(e, out=e)
+    out = np.where(u >= 0, 1.0, e)
+    e += 1.0
+    out /= e
     return out
 
 

@@ -28,7 +28,7 @@ import numpy as np
 from sheetnet.errors import TrainingError, UsageError
 from sheetnet.net import activations as act
 from sheetnet.net.model import Layer, Model
-from sheetnet.net.network import Pass, deltas, forward_pass, gradients
+from sheetnet.net.network import delta_arrays, forward_arrays, gradient_arrays
 
 INIT_DECIMALS = 12
 
@@ -137,13 +137,17 @@ def check_trainable(model: Model) -> None:
     act.check_pair(model.loss, model.output_activation)
 
 
-def _batches(n: int, settings: TrainSettings, rng: np.random.Generator) -> list[np.ndarray]:
-    order = rng.permutation(n) if settings.shuffle else np.arange(n)
+def _batches(n: int, settings: TrainSettings, rng: np.random.Generator) -> list[np.ndarray | slice]:
+    """Row selections of one epoch: index arrays when shuffled, slices (no copying) in data order."""
     size = n if settings.batch_size is None else min(settings.batch_size, n)
+    if not settings.shuffle:
+        return [slice(i, i + size) for i in range(0, n, size)]
+    order = rng.permutation(n)
     return [order[i:i + size] for i in range(0, n, size)]
 
 
-def epoch_batches(n: int, settings: TrainSettings, epochs: int | None = None) -> Iterator[list[np.ndarray]]:
+def epoch_batches(n: int, settings: TrainSettings, epochs: int | None = None
+                  ) -> Iterator[list[np.ndarray | slice]]:
     """The batches (row indices) of each epoch, as the trainer draws them from the seed."""
     shuffle_rng = seed_streams(settings.seed)[1]
     for _ in range(settings.epochs if epochs is None else epochs):
@@ -157,23 +161,17 @@ def _correct(task: str, y: np.ndarray, t: np.ndarray) -> np.ndarray:
     return np.all((y >= 0.5) == (t >= 0.5), axis=1)
 
 
-def _update(layers: tuple[Layer, ...], grad_w, grad_b, velocity, settings: TrainSettings):
-    new_layers, new_velocity = [], []
-    for layer, gw, gb, (vw, vb) in zip(layers, grad_w, grad_b, velocity, strict=True):
-        vw = settings.momentum * vw - settings.learning_rate * gw
-        vb = settings.momentum * vb - settings.learning_rate * gb
-        new_layers.append(replace(layer, weights=layer.weights + vw, bias=layer.bias + vb))
-        new_velocity.append((vw, vb))
-    return tuple(new_layers), tuple(new_velocity)
-
-
-def _check_finite(layers: tuple[Layer, ...], epoch: int, step: int) -> None:
-    for k, layer in enumerate(layers):
-        if not (np.isfinite(layer.weights).all() and np.isfinite(layer.bias).all()):
+def _check_finite(weights: list[np.ndarray], biases: list[np.ndarray], epoch: int) -> None:
+    for k, (w, b) in enumerate(zip(weights, biases, strict=True)):
+        if not (np.isfinite(w).all() and np.isfinite(b).all()):
             raise TrainingError(
-                f"training diverged: a parameter of layer {k + 1} became non-finite in epoch {epoch} "
-                f"(step {step}); try a smaller learning rate"
+                f"training diverged: a parameter of layer {k + 1} became non-finite in epoch {epoch}; "
+                "try a smaller learning rate"
             )
+
+
+def _layers(template: tuple[Layer, ...], weights: list[np.ndarray], biases: list[np.ndarray]) -> tuple[Layer, ...]:
+    return tuple(replace(layer, weights=w, bias=b) for layer, w, b in zip(template, weights, biases, strict=True))
 
 
 def train(model: Model, x: np.ndarray, t: np.ndarray, settings: TrainSettings,
@@ -190,29 +188,57 @@ def train(model: Model, x: np.ndarray, t: np.ndarray, settings: TrainSettings,
     check_trainable(model)
     if schedule is None:
         schedule = epoch_batches(len(x), settings)
-    layers = model.layers
-    velocity = tuple((np.zeros_like(layer.weights), np.zeros_like(layer.bias)) for layer in layers)
+    acts = [layer.activation for layer in model.layers]
+    weights = [layer.weights.copy() for layer in model.layers]
+    biases = [layer.bias.copy() for layer in model.layers]
+    vel_w = [np.zeros_like(w) for w in weights]
+    vel_b = [np.zeros_like(b) for b in biases]
+    lr, mu, l2 = settings.learning_rate, settings.momentum, settings.l2
     epoch_loss, epoch_acc, trace = [], [], []
     step = 0
     for epoch, batches in enumerate(schedule, start=1):
-        losses, correct = [], []
+        outputs, targets = [], []
         for rows in batches:
             step += 1
-            fwd: Pass = forward_pass(layers, x[rows])
-            loss = act.sample_loss(model.loss, model.output_activation, fwd.output, t[rows])
-            delta = deltas(layers, fwd, t[rows], model.loss)
-            grad_w, grad_b = gradients(layers, x[rows], fwd, delta, settings.l2)
-            new_layers, velocity = _update(layers, grad_w, grad_b, velocity, settings)
-            _check_finite(new_layers, epoch, step)
-            if epoch <= trace_epochs:
-                trace.append(TraceStep(epoch, step, rows, x[rows], t[rows], fwd.z, fwd.a, loss, delta,
-                                       grad_w, grad_b, layers, new_layers, velocity))
-            losses.append(loss)
-            correct.append(_correct(model.task, fwd.output, t[rows]))
-            layers = new_layers
-        epoch_loss.append(float(np.mean(np.concatenate(losses))))
-        epoch_acc.append(float(np.mean(np.concatenate(correct))) if model.task != "regression" else math.nan)
+            xb, tb = x[rows], t[rows]
+            zs, outs = forward_arrays(weights, biases, acts, xb)
+            delta = delta_arrays(weights, acts, zs, outs, tb, model.loss)
+            grad_w, grad_b = gradient_arrays(weights, xb, outs, delta, l2)
+            before = (list(weights), list(biases)) if epoch <= trace_epochs else None
+            for k in range(len(weights)):
+                if mu:
+                    vel_w[k] = mu * vel_w[k] - lr * grad_w[k]
+                    vel_b[k] = mu * vel_b[k] - lr * grad_b[k]
+                    weights[k] = weights[k] + vel_w[k]
+                    biases[k] = biases[k] + vel_b[k]
+                else:  # identical to the momentum form with mu = 0, without its work
+                    weights[k] = weights[k] - lr * grad_w[k]
+                    biases[k] = biases[k] - lr * grad_b[k]
+            if before is not None:
+                trace.append(_trace_step(model, epoch, step, rows, xb, tb, zs, outs, delta, grad_w, grad_b, before,
+                                         (weights, biases), (vel_w, vel_b), lr, mu))
+            outputs.append(outs[-1])
+            targets.append(tb)
+        _check_finite(weights, biases, epoch)
+        y_all, t_all = np.concatenate(outputs), np.concatenate(targets)
+        epoch_loss.append(float(np.mean(act.sample_loss(model.loss, acts[-1], y_all, t_all))))
+        epoch_acc.append(float(np.mean(_correct(model.task, y_all, t_all))) if model.task != "regression"
+                         else math.nan)
         if progress is not None:
             progress(epoch)
-    return TrainResult(model=model.with_layers(layers), initial=model, epoch_loss=np.array(epoch_loss),
-                       epoch_accuracy=np.array(epoch_acc), trace=tuple(trace))
+    return TrainResult(model=model.with_layers(_layers(model.layers, weights, biases)), initial=model,
+                       epoch_loss=np.array(epoch_loss), epoch_accuracy=np.array(epoch_acc), trace=tuple(trace))
+
+
+def _trace_step(model, epoch, step, rows, xb, tb, zs, outs, delta, grad_w, grad_b, before, after, velocity, lr, mu
+                ) -> TraceStep:
+    """A frozen record of one update (arrays are copied where the loop reuses them)."""
+    loss = act.sample_loss(model.loss, model.layers[-1].activation, outs[-1], tb)
+    if mu:
+        vel = tuple((vw.copy(), vb.copy()) for vw, vb in zip(*velocity, strict=True))
+    else:
+        vel = tuple((-lr * gw, -lr * gb) for gw, gb in zip(grad_w, grad_b, strict=True))
+    rows = np.arange(rows.start, rows.start + len(xb)) if isinstance(rows, slice) else np.asarray(rows)
+    return TraceStep(epoch=epoch, step=step, rows=rows, inputs=xb, targets=tb, z=tuple(zs), a=tuple(outs),
+                     loss=loss, delta=tuple(delta), grad_w=tuple(grad_w), grad_b=tuple(grad_b),
+                     before=_layers(model.layers, *before), after=_layers(model.layers, *after), velocity=vel)
