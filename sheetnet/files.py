@@ -47,12 +47,22 @@ def write_atomic(path: Path, write: Callable[[Path], None], force: bool = False)
     tmp = Path(tmp_name)
     try:
         write(tmp)
+        os.chmod(tmp, _file_mode(target))
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(OSError):
             tmp.unlink()
         raise
     return target
+
+
+def _file_mode(target: Path) -> int:
+    """The mode a plain new file would get (umask applied), or the overwritten file's mode."""
+    if target.exists():
+        return target.stat().st_mode & 0o777
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
 
 
 def write_text_atomic(path: Path, text: str, force: bool = False) -> Path:
