@@ -27,12 +27,13 @@ class Fingerprints:
         self.formulas: dict[str, Any] = {}
         self.inputs: dict[str, Any] = {}
 
-    def add(self, sheet: str, row: int, col: int, role: str, content: object) -> None:
-        target = self.formulas if role == "formula" else self.inputs if role == "input" else None
-        if target is None:
-            return
-        digest = target.setdefault(sheet, hashlib.sha256())
-        digest.update(f"{row},{col},{content!r}\n".encode())
+    def add_all(self, sheet: str, entries) -> None:
+        """Fold a batch of entries (in writing order) into the sheet's two digests."""
+        formulas = [f"{e.row},{e.col},{e.content}" for e in entries if e.role == "formula"]
+        inputs = [f"{e.row},{e.col},{e.content!r}" for e in entries if e.role == "input"]
+        for target, lines in ((self.formulas, formulas), (self.inputs, inputs)):
+            if lines:
+                target.setdefault(sheet, hashlib.sha256()).update(("\n".join(lines) + "\n").encode())
 
     def to_dict(self) -> dict[str, dict[str, str]]:
         return {"formulas": {k: v.hexdigest() for k, v in sorted(self.formulas.items())},

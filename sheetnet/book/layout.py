@@ -21,6 +21,8 @@ EPOCHS = "Epochs"
 LAYOUT = "sheetnet_layout"
 
 Key = tuple
+_FIRST_ROW = ("first row",)  # cached in Table.index: Table.cell is called for every cell of a large book
+_new_cell = tuple.__new__
 
 
 @dataclass(frozen=True)
@@ -45,6 +47,7 @@ class Table:
 
     def __post_init__(self) -> None:
         self.index.update({c.key: self.left + n for n, c in enumerate(self.columns)})
+        self.index[_FIRST_ROW] = self.header_row + 1
 
     @property
     def first_row(self) -> int:
@@ -57,7 +60,8 @@ class Table:
         return self.index[key]
 
     def cell(self, i: int, key: Key) -> Cell:
-        return Cell(self.sheet, self.first_row + i, self.index[key])
+        index = self.index
+        return _new_cell(Cell, (self.sheet, index[_FIRST_ROW] + i, index[key]))
 
     def span(self, i: int, first: Key, count: int) -> Block:
         """``count`` adjacent cells of row ``i`` starting at column ``first``."""

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -30,10 +31,10 @@ from sheetnet.book.spec import BookSpec
 from sheetnet.net.activations import Activation
 
 
-@dataclass(frozen=True, slots=True)
-class Entry:
+class Entry(NamedTuple):
     """One cell. ``role``: title, text, header, label, input or formula. ``content`` is the
-    constant or the formula text; ``value`` the reference (cached) value of a formula."""
+    constant or the formula text; ``value`` the reference (cached) value of a formula.
+    (A tuple: a large workbook makes millions of them.)"""
 
     row: int
     col: int
@@ -456,7 +457,7 @@ def _record_row(layout: BookLayout, numbers: Numbers, s: int, first: int, count:
         entries += _contribution_entries(spec, table, i, p, step, refs)
     if p == count - 1:
         entries += _step_entries(layout, s, first, count, step, weight)
-    yield from sorted(entries, key=lambda e: e.col)
+    yield from entries
 
 
 def _pass(step):

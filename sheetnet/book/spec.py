@@ -12,6 +12,7 @@ The reference numbers of every formula cell are a function of both (``sheetnet.b
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -33,11 +34,11 @@ class RecordSpec:
     def n_epochs(self) -> int:
         return self.epochs[-1] if self.epochs else 0
 
-    @property
+    @cached_property
     def n_rows(self) -> int:
         return sum(len(s) for s in self.steps)
 
-    @property
+    @cached_property
     def max_batch(self) -> int:
         return max((len(s) for s in self.steps), default=0)
 

@@ -8,6 +8,8 @@ in constant-memory mode, and gives byte-identical files for identical input.
 from __future__ import annotations
 
 import datetime as dt
+import itertools
+import re
 import warnings
 from collections.abc import Iterable, Iterator
 from pathlib import Path
@@ -18,7 +20,7 @@ from xlsxwriter.worksheet import Worksheet
 
 from sheetnet.book import layout as L
 from sheetnet.book import plan
-from sheetnet.book.addresses import defined_name_target, range_ref
+from sheetnet.book.addresses import a1, defined_name_target, range_ref
 from sheetnet.book.describe import Fingerprints
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
@@ -41,11 +43,63 @@ STYLE = {
 
 
 class _Sheet(Worksheet):
-    """Formulas are written exactly as built: sheetnet's vocabulary has no function that needs
-    XlsxWriter's future-function prefixes, so its per-formula rewriting is skipped."""
+    """XlsxWriter's worksheet with three changes, all tested:
+
+    * formulas are written exactly as built (sheetnet's vocabulary has no function that needs the
+      future-function prefixes, so XlsxWriter's per-formula rewriting is skipped);
+    * numbers are written with ``repr`` (17 significant digits), so every double round-trips;
+    * :meth:`write_row_xml` appends a whole row of cells at once in constant-memory mode, which
+      the large tables use (a row written this way has no notes and no row formatting).
+    """
 
     def _prepare_formula(self, formula, expand_future_functions=False):
         return formula[1:] if formula.startswith("=") else formula
+
+    def _xml_number_element(self, number, attributes=()) -> None:
+        attr = "".join(f' {key}="{value}"' for key, value in attributes)
+        self.fh.write(f"<c{attr}><v>{_number_text(number)}</v></c>")
+
+    def write_row_xml(self, row: int, first_col: int, last_col: int, cells: str) -> None:
+        if self._check_dimensions(row, first_col) or self._check_dimensions(row, last_col):
+            raise WorkbookFormatError(f"row {row + 1} of sheet {self.name!r} is outside the sheet")
+        if row > self.previous_row:
+            self._write_single_row(row)  # flush a row still held by the ordinary write_* methods
+        self.fh.write(f'<row r="{row + 1}">{cells}</row>')
+        self.previous_row = row
+
+
+def _number_text(value: float) -> str:
+    if type(value) is float:
+        return repr(value)
+    if isinstance(value, int | np.integer) and not isinstance(value, bool):
+        return str(int(value))
+    return repr(float(value))
+
+
+_XML_ESCAPES = str.maketrans({"&": "&amp;", "<": "&lt;", ">": "&gt;"})
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f]")
+
+
+def _xml_text(text: str) -> str:
+    """XML character data; control characters become Excel's _xHHHH_ escapes."""
+    if "_x" in text:
+        text = text.replace("_x", "_x005F_x")
+    return _CONTROL.sub(lambda m: f"_x{ord(m.group()):04X}_", text).translate(_XML_ESCAPES)
+
+
+def _cell_xml(entry: Entry, xf: int) -> str:
+    """One <c> element: a formula with its cached value, a number or an inline string."""
+    where = f'r="{a1(entry.row, entry.col)}" s="{xf}"'
+    if entry.role == "formula":
+        formula = _xml_text(entry.content[1:])
+        value = entry.value
+        if isinstance(value, str):
+            return f'<c {where} t="str"><f>{formula}</f><v>{_xml_text(value)}</v></c>'
+        return f"<c {where}><f>{formula}</f><v>{_number_text(value)}</v></c>"
+    if isinstance(entry.content, str):
+        space = ' xml:space="preserve"' if entry.content != entry.content.strip() else ""
+        return f'<c {where} t="inlineStr"><is><t{space}>{_xml_text(entry.content)}</t></is></c>'
+    return f"<c {where}><v>{_number_text(entry.content)}</v></c>"
 
 
 HINTS = {"count": {"num_format": "0"}, "ratio": {"num_format": "0.0000"}, "data": {"num_format": "General"}}
@@ -78,18 +132,25 @@ def _write(sheet: Worksheet, entry: Entry, formats: dict) -> None:
         sheet.write_comment(entry.row, entry.col, entry.note, {"x_scale": 2.2, "y_scale": 1.6})
 
 
-def write_entries(sheet: Worksheet, entries: Iterable[Entry], formats: dict, ordered: bool = False) -> int:
-    """Write entries (sorted first unless the caller yields them row by row); return the count."""
-    stream: Iterable[Entry] = entries if ordered else sorted(entries, key=lambda e: (e.row, e.col))
-    count = 0
+def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordered: bool = False) -> None:
+    """Write entries; ``ordered`` streams come row by row and plain rows are appended whole."""
+    if not ordered:
+        for entry in sorted(entries, key=lambda e: (e.row, e.col)):
+            _write(sheet, entry, formats)
+        return
+    xf = {key: fmt._get_xf_index() for key, fmt in formats.items()}
     last_row = -1
-    for entry in stream:
-        if entry.row < last_row:
+    for row, group in itertools.groupby(entries, key=lambda e: e.row):
+        if row <= last_row:
             raise WorkbookFormatError(f"internal: rows out of order on sheet {sheet.name!r}")
-        last_row = entry.row
-        _write(sheet, entry, formats)
-        count += 1
-    return count
+        last_row = row
+        cells = sorted(group, key=lambda e: e.col)
+        if any(e.note for e in cells) or row in sheet.row_info:
+            for entry in cells:
+                _write(sheet, entry, formats)
+            continue
+        xml = "".join(_cell_xml(e, xf[(e.role, e.style) if e.style else e.role]) for e in cells)
+        sheet.write_row_xml(row, cells[0].col, cells[-1].col, xml)
 
 
 def _guide(book, formats, layout: BookLayout, names: dict) -> None:
@@ -108,10 +169,11 @@ def _guide(book, formats, layout: BookLayout, names: dict) -> None:
             sheet.write_string(row, 1, right, wrapped["text" if role == "text" else "label"])
 
 
-def _sheet(book, name: str, widths: tuple[int, int] = (22, 14), header_row: int | None = None) -> Worksheet:
+def _sheet(book, name: str, widths: tuple[int, int] = (22, 14), header_row: int | None = None,
+           columns: int = 64) -> Worksheet:
     sheet = book.add_worksheet(name, worksheet_class=_Sheet)
     sheet.set_column(0, 0, widths[0])
-    sheet.set_column(1, 16383, widths[1])
+    sheet.set_column(1, max(columns, 2) - 1, widths[1])
     sheet.set_landscape()
     sheet.set_paper(9)  # A4
     if header_row is None:
@@ -178,7 +240,7 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with) 
         warnings.simplefilter("error")
         _guide(book, formats, layout, names)
         for name, entries, widths, freeze, ordered in sheets:
-            sheet = _sheet(book, name, widths, None if freeze is None else freeze[0] - 1)
+            sheet = _sheet(book, name, widths, None if freeze is None else freeze[0] - 1, _width(layout, name))
             if freeze:
                 sheet.freeze_panes(*freeze)
                 sheet.set_row(freeze[0] - 1, 48)  # room for wrapped column headers
@@ -192,6 +254,16 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with) 
     return tally.formulas
 
 
+def _width(layout: BookLayout, sheet: str) -> int:
+    """How many columns a sheet uses (for column widths)."""
+    tables = {L.SCORING: layout.scoring, L.RECORD: layout.record, L.EPOCHS: layout.epochs}
+    table = tables.get(sheet)
+    if table is not None:
+        return table.left + len(table.columns)
+    spec = layout.spec
+    return 2 + max(len(spec.inputs), *spec.units, len(spec.classes))
+
+
 class Tally:
     """Counts formula cells and fingerprints formulas and inputs as entries stream past."""
 
@@ -200,8 +272,13 @@ class Tally:
         self.fingerprints = Fingerprints()
 
     def stream(self, sheet: str, entries: Iterable[Entry]) -> Iterator[Entry]:
+        batch: list[Entry] = []
         for entry in entries:
             if entry.role == "formula":
                 self.formulas += 1
-            self.fingerprints.add(sheet, entry.row, entry.col, entry.role, entry.content)
+            batch.append(entry)
+            if len(batch) >= 4096:
+                self.fingerprints.add_all(sheet, batch)
+                batch = []
             yield entry
+        self.fingerprints.add_all(sheet, batch)
