@@ -1,0 +1,569 @@
+"""The embedded recalculation engine: every formula of a workbook, from the text as written.
+
+It knows nothing about networks. Speed comes from three things:
+
+* cells whose formulas are the same up to row offsets share one *template* (key: the formula
+  with row numbers blanked, plus the row offsets), which is parsed and compiled to a Python
+  function of the host row once;
+* a template made only of operators and the functions in ``xlfuncs.FAST_FUNCTIONS`` is compiled
+  to straight Python over floats (the fast path); anything else is evaluated per cell by the
+  `formulas` package (the general path) and reported as such;
+* cells are computed in sheet and row order, and a cell that needs a formula not yet computed
+  raises ``NotReady``; the scheduler computes that one first (an explicit stack, so chains of a
+  million cells need no recursion).
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass, field
+
+from openpyxl.formula.tokenizer import Token, Tokenizer
+
+from sheetnet.book.addresses import column_index
+from sheetnet.engines import xlfuncs as xf
+from sheetnet.engines.xlsx import CellError, Workbook
+from sheetnet.errors import EvaluationError
+
+WIDTH = 16_384  # cell key = row * WIDTH + col
+_MISSING = object()
+_KEY = re.compile(r"""("(?:[^"]|"")*")|((?:'(?:[^']|'')+'|[A-Za-z_][\w.]*)!)?(\$?[A-Z]{1,3})(\$?)([0-9]+)(?![\w(!])""")
+_PURE_REF = re.compile(r"^\s*((?:'(?:[^']|'')+'|[A-Za-z_][\w.]*)!)?(\$?)([A-Z]{1,3})(\$?)([0-9]+)\s*$")
+_RANGE = re.compile(r"^(?:('(?:[^']|'')+'|[^'!:]+)!)?(\$?)([A-Za-z]{1,3})(\$?)([0-9]+)"
+                    r"(?::(\$?)([A-Za-z]{1,3})(\$?)([0-9]+))?$")
+PRECEDENCE = {"=": 1, "<>": 1, "<": 1, ">": 1, "<=": 1, ">=": 1, "&": 2, "+": 3, "-": 3, "*": 4, "/": 4, "^": 5}
+_ARRAY_OPS = {"+": "op_add", "-": "op_sub", "*": "op_mul", "/": "op_div", "^": "op_pow", "=": "op_eq",
+              "<>": "op_ne", "<": "op_lt", "<=": "op_le", ">": "op_gt", ">=": "op_ge", "&": "op_cat"}
+_COMPARE = {"=": "== 0", "<>": "!= 0", "<": "< 0", "<=": "<= 0", ">": "> 0", ">=": ">= 0"}
+
+
+class NotReady(Exception):
+    """A formula needs the value of another formula that is not computed yet."""
+
+    def __init__(self, store: Store, key: int) -> None:
+        super().__init__()
+        self.store, self.key = store, key
+
+
+class Unsupported(Exception):
+    """A construct outside the fast path (handled by the general path)."""
+
+
+@dataclass(eq=False)
+class Store:
+    """One sheet's constants, formula cells (key -> evaluator) and computed values."""
+
+    name: str
+    const: dict[int, object] = field(default_factory=dict)
+    formulas: dict[int, object] = field(default_factory=dict)
+    out: dict[int, object] = field(default_factory=dict)
+
+
+def V(store: Store, row: int, col: int):
+    """The value of one cell as a formula sees it (errors raised, uncomputed formulas NotReady)."""
+    key = row * WIDTH + col
+    value = store.out.get(key, _MISSING)
+    if value is _MISSING:
+        if key in store.formulas:
+            raise NotReady(store, key)
+        value = store.const.get(key)
+    if type(value) is CellError:
+        raise xf.XlErr(value.code)
+    return value
+
+
+def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xf.Arr:
+    """A block of values (errors kept as elements)."""
+    out, formulas, const = store.out, store.formulas, store.const
+    values = []
+    for row in range(r0, r1 + 1):
+        base = row * WIDTH
+        for col in range(c0, c1 + 1):
+            key = base + col
+            value = out.get(key, _MISSING)
+            if value is _MISSING:
+                if key in formulas:
+                    raise NotReady(store, key)
+                value = const.get(key)
+            values.append(value)
+    return xf.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
+
+
+def _raise(code: str):
+    raise xf.XlErr(code)
+
+
+RUNTIME = {name: getattr(xf, name) for name in dir(xf) if name.startswith(("op_", "f_"))}
+RUNTIME.update(V=V, A=A, N=xf.num, T=xf.text, TRUTH=xf.truth, DIV=xf.div, POW=xf.power, CMP=xf.compare,
+               EW=xf.elementwise, M=xf.mapped, RAISE=_raise, neg=lambda x: -xf.num(x))
+
+
+# ---------------------------------------------------------------- parsing
+
+
+@dataclass(frozen=True)
+class Node:
+    kind: str
+    args: tuple = ()
+    array: bool = False
+
+
+class _Parser:
+    """Precedence climbing over openpyxl's tokens; references resolved against the host cell."""
+
+    def __init__(self, formula: str, resolve) -> None:
+        try:
+            items = Tokenizer("=" + formula).items
+        except Exception as exc:
+            raise Unsupported(f"cannot tokenize: {exc}") from None
+        self.tokens = [t for t in items if t.type != Token.WSPACE]
+        self.pos = 0
+        self.resolve = resolve
+
+    def peek(self) -> Token | None:
+        return self.tokens[self.pos] if self.pos < len(self.tokens) else None
+
+    def take(self) -> Token:
+        token = self.peek()
+        if token is None:
+            raise Unsupported("unexpected end of formula")
+        self.pos += 1
+        return token
+
+    def parse(self) -> Node:
+        node = self.expression(1)
+        if self.peek() is not None:
+            raise Unsupported(f"unexpected token {self.peek().value!r}")
+        return node
+
+    def expression(self, minimum: int) -> Node:
+        left = self.unary()
+        while True:
+            token = self.peek()
+            if token is None or token.type != Token.OP_IN or token.value not in PRECEDENCE:
+                return left
+            prec = PRECEDENCE[token.value]
+            if prec < minimum:
+                return left
+            self.take()
+            right = self.expression(prec + 1)
+            left = Node("bin", (token.value, left, right), left.array or right.array)
+
+    def unary(self) -> Node:
+        token = self.peek()
+        if token is not None and token.type == Token.OP_PRE:
+            self.take()
+            operand = self.unary()
+            return operand if token.value == "+" else Node("neg", (operand,), operand.array)
+        node = self.primary()
+        while (token := self.peek()) is not None and token.type == Token.OP_POST and token.value == "%":
+            self.take()
+            node = Node("pct", (node,), node.array)
+        return node
+
+    def primary(self) -> Node:
+        token = self.take()
+        if token.type == Token.OPERAND:
+            return self.operand(token)
+        if token.type == Token.PAREN and token.subtype == Token.OPEN:
+            node = self.expression(1)
+            closing = self.take()
+            if closing.type != Token.PAREN:
+                raise Unsupported("unbalanced parentheses")
+            return node
+        if token.type == Token.FUNC and token.subtype == Token.OPEN:
+            return self.call(token.value[:-1].upper())
+        raise Unsupported(f"unexpected token {token.value!r}")
+
+    def call(self, name: str) -> Node:
+        if name.startswith("_XLFN."):
+            name = name[6:]
+        args: list[Node] = []
+        if (token := self.peek()) is not None and token.type == Token.FUNC and token.subtype == Token.CLOSE:
+            self.take()
+            return self.function(name, args)
+        while True:
+            args.append(self.expression(1))
+            token = self.take()
+            if token.type == Token.SEP and token.subtype == Token.ARG:
+                continue
+            if token.type == Token.FUNC and token.subtype == Token.CLOSE:
+                return self.function(name, args)
+            raise Unsupported(f"unexpected token {token.value!r} in {name}")
+
+    @staticmethod
+    def function(name: str, args: list[Node]) -> Node:
+        if name not in xf.FAST_FUNCTIONS:
+            raise Unsupported(f"function {name} is not on the fast path")
+        if name in xf.ELEMENTWISE and len(args) == 1:
+            return Node("call", (name, tuple(args)), args[0].array)
+        if name == "IF" and (any(a.array for a in args) or not 2 <= len(args) <= 3):
+            raise Unsupported("IF over arrays")
+        return Node("call", (name, tuple(args)), False)
+
+    def operand(self, token: Token) -> Node:
+        if token.subtype == Token.NUMBER:
+            return Node("num", (float(token.value),))
+        if token.subtype == Token.TEXT:
+            return Node("str", (token.value[1:-1].replace('""', '"'),))
+        if token.subtype == Token.LOGICAL:
+            return Node("bool", (token.value.upper() == "TRUE",))
+        if token.subtype == Token.ERROR:
+            return Node("err", (token.value,))
+        return self.resolve(token.value)
+
+
+# ---------------------------------------------------------------- code generation
+
+
+class _Compiler:
+    def __init__(self, engine: Engine, host_sheet: str, host_row: int) -> None:
+        self.engine, self.host_sheet, self.host_row = engine, host_sheet, host_row
+        self.stores: dict[str, str] = {}
+
+    def store(self, sheet: str) -> str:
+        name = self.engine.sheet_name(sheet)
+        if name not in self.stores:
+            self.stores[name] = f"S{len(self.stores)}"
+        return self.stores[name]
+
+    def resolve(self, text: str) -> Node:
+        match = _RANGE.match(text)
+        if match is None:
+            target = self.engine.names.get(text.upper())
+            if target is None:
+                raise Unsupported(f"unknown name or reference {text!r}")
+            match = _RANGE.match(target.lstrip("="))
+            if match is None:
+                raise Unsupported(f"name {text!r} refers to {target!r}")
+        sheet = match.group(1)
+        sheet = self.host_sheet if sheet is None else sheet.strip("'").replace("''", "'")
+        row0 = self.row(match.group(4), match.group(5))
+        col0 = column_index(match.group(3).upper())
+        if match.group(7) is None:
+            return Node("ref", (sheet, row0, col0))
+        row1 = self.row(match.group(8), match.group(9))
+        col1 = column_index(match.group(7).upper())
+        return Node("range", (sheet, row0, col0, row1, col1), True)
+
+    def row(self, dollar: str, digits: str) -> str:
+        row = int(digits) - 1
+        if dollar:
+            return str(row)
+        offset = row - self.host_row
+        return "r" if offset == 0 else f"(r{offset:+d})"
+
+    def code(self, node: Node) -> str:
+        kind = node.kind
+        if kind == "num":
+            return repr(node.args[0])
+        if kind in ("str", "bool"):
+            return repr(node.args[0])
+        if kind == "err":
+            return f"RAISE({node.args[0]!r})"
+        if kind == "ref":
+            sheet, row, col = node.args
+            return f"V({self.store(sheet)},{row},{col})"
+        if kind == "range":
+            sheet, r0, c0, r1, c1 = node.args
+            return f"A({self.store(sheet)},{r0},{c0},{r1},{c1})"
+        if kind == "neg":
+            inner = self.code(node.args[0])
+            return f"M(neg,{inner})" if node.array else f"(-N({inner}))"
+        if kind == "pct":
+            return f"(N({self.code(node.args[0])})/100.0)"
+        if kind == "bin":
+            return self.binary(node)
+        return self.call(node)
+
+    def binary(self, node: Node) -> str:
+        op, left, right = node.args
+        a, b = self.code(left), self.code(right)
+        if node.array:
+            return f"EW({_ARRAY_OPS[op]},{a},{b})"
+        if op in ("+", "-", "*"):
+            return f"(N({a}){op}N({b}))"
+        if op == "/":
+            return f"DIV(N({a}),N({b}))"
+        if op == "^":
+            return f"POW(N({a}),N({b}))"
+        if op == "&":
+            return f"(T({a})+T({b}))"
+        return f"(CMP({a},{b}){_COMPARE[op]})"
+
+    def call(self, node: Node) -> str:
+        name, args = node.args
+        codes = [self.code(a) for a in args]
+        if name == "IF":
+            otherwise = codes[2] if len(codes) == 3 else "False"
+            return f"(({codes[1]}) if TRUTH({codes[0]}) else ({otherwise}))"
+        function = f"f_{name.lower()}"
+        if name in xf.ELEMENTWISE and node.array:
+            return f"M({function},{codes[0]})"
+        return f"{function}({','.join(codes)})"
+
+
+# ---------------------------------------------------------------- the engine
+
+
+@dataclass
+class Recalculation:
+    """Computed values of every formula cell, per sheet (0-based (row, col) keys)."""
+
+    values: dict[str, dict[tuple[int, int], object]]
+    general: list[tuple[str, tuple[int, int], str]]
+    templates: int
+    formula_cells: int
+
+    def errors(self) -> list[tuple[str, tuple[int, int], str]]:
+        return [(sheet, pos, v.code) for sheet, cells in self.values.items() for pos, v in cells.items()
+                if type(v) is CellError]
+
+
+class Engine:
+    def __init__(self, book: Workbook) -> None:
+        self.book = book
+        self.names = {name.upper(): target for name, target in book.names.items()}
+        self.stores = {name: Store(name) for name in book.sheets}
+        self.by_upper = {name.upper(): name for name in book.sheets}
+        self.templates: dict[tuple, object] = {}
+        self.masks: dict[tuple[str, str], tuple[bool, ...]] = {}
+
+    def sheet_name(self, name: str) -> str:
+        found = self.by_upper.get(name.upper())
+        if found is None:
+            raise Unsupported(f"reference to a sheet that does not exist: {name!r}")
+        return found
+
+    def compile_template(self, sheet: str, row: int, formula: str):
+        compiler = _Compiler(self, sheet, row)
+        node = _Parser(formula, compiler.resolve).parse()
+        body = compiler.code(node)
+        if node.array:
+            body = f"_single({body})"
+        namespace = dict(RUNTIME, _single=_single)
+        namespace.update({alias: self.stores[name] for name, alias in compiler.stores.items()})
+        exec(f"def _cell(r):\n    return {body}\n", namespace)
+        return namespace["_cell"]
+
+    def evaluator(self, sheet: str, row: int, formula: str):
+        """The function that computes a cell: a shared compiled template, a link, or the general path."""
+        pure = _PURE_REF.match(formula)
+        if pure:
+            link = self._link(sheet, row, pure)
+            if link is not None:
+                return link
+        key = self._template_key(sheet, row, formula)
+        function = self.templates.get(key)
+        if function is None:
+            try:
+                function = self.compile_template(sheet, row, formula)
+            except (Unsupported, SyntaxError, RecursionError):
+                function = _GeneralPath(self, sheet, formula)
+            if not isinstance(function, _GeneralPath):
+                self.templates[key] = function
+        return function
+
+    def _template_key(self, sheet: str, row: int, formula: str) -> tuple:
+        """Formulas equal up to relative row offsets get equal keys.
+
+        The formula with every digit turned into 0 fixes the syntax (which digit runs are relative
+        row numbers, which are constants); that shape's mask is found once with a full reference
+        scan. Relative row numbers then enter the key as offsets, every other digit run as text.
+        """
+        shape = formula.translate(_ZEROS)
+        runs = _RUNS.findall(formula)
+        mask = self.masks.get((sheet, shape))
+        if mask is None:
+            mask = self.masks[sheet, shape] = _relative_rows(formula)
+        return (sheet, shape, *[int(d) - row if relative else d for d, relative in zip(runs, mask, strict=True)])
+
+    def _link(self, sheet: str, row: int, match: re.Match):
+        prefix = match.group(1)
+        try:
+            target = self.stores[self.sheet_name(prefix[:-1].strip("'").replace("''", "'"))] if prefix \
+                else self.stores[sheet]
+        except Unsupported:
+            return None
+        col = column_index(match.group(3))
+        r = int(match.group(5)) - 1
+        if match.group(4):
+            return lambda _row, s=target, rr=r, c=col: V(s, rr, c)
+        offset = r - row
+        return lambda host, s=target, o=offset, c=col: V(s, host + o, c)
+
+    def run(self) -> Recalculation:
+        order = []
+        for name, cells in self.book.sheets.items():
+            store = self.stores[name]
+            for (row, col), value in cells.values.items():
+                if (row, col) not in cells.formulas:
+                    store.const[row * WIDTH + col] = value
+            for (row, col), formula in sorted(cells.formulas.items()):
+                key = row * WIDTH + col
+                store.formulas[key] = (self.evaluator(name, row, formula), row)
+                order.append((store, key))
+        deferred = self._first_pass(order)
+        for store, key in deferred:
+            if key not in store.out:
+                self._compute(store, key)
+        values = {name: {divmod(k, WIDTH): v for k, v in store.out.items()} for name, store in self.stores.items()}
+        return Recalculation(values=values, general=[], templates=len(self.templates), formula_cells=len(order))
+
+    @staticmethod
+    def _first_pass(order: list[tuple[Store, int]]) -> list[tuple[Store, int]]:
+        """Compute in sheet and row order; a cell whose inputs are not ready is put off, not chased."""
+        deferred = []
+        for store, key in order:
+            function, row = store.formulas[key]
+            try:
+                value = _result(function(row))
+            except NotReady:
+                deferred.append((store, key))
+                continue
+            except xf.XlErr as err:
+                value = CellError(err.code)
+            except (OverflowError, ValueError, ZeroDivisionError):
+                value = CellError("#NUM!")
+            store.out[key] = value
+        return deferred
+
+    def _compute(self, store: Store, key: int) -> None:
+        stack = [(store, key)]
+        active = {(id(store), key)}
+        while stack:
+            s, k = stack[-1]
+            if k in s.out:
+                stack.pop()
+                active.discard((id(s), k))
+                continue
+            function, row = s.formulas[k]
+            try:
+                value = _result(function(row))
+            except NotReady as wait:
+                ident = (id(wait.store), wait.key)
+                if ident in active:
+                    s.out[k] = CellError("#CIRC!")
+                    continue
+                stack.append((wait.store, wait.key))
+                active.add(ident)
+                continue
+            except xf.XlErr as err:
+                value = CellError(err.code)
+            except (OverflowError, ValueError, ZeroDivisionError):
+                value = CellError("#NUM!")
+            s.out[k] = value
+            stack.pop()
+            active.discard((id(s), k))
+
+
+_ZEROS = str.maketrans("123456789", "000000000")
+_RUNS = re.compile(r"[0-9]+")
+
+
+def _relative_rows(formula: str) -> tuple[bool, ...]:
+    """For each digit run of the formula: is it the row number of a relative cell reference?"""
+    relative = {m.start(5) for m in _KEY.finditer(formula) if m.group(5) and not m.group(4)}
+    return tuple(m.start() in relative for m in _RUNS.finditer(formula))
+
+
+def _single(value):
+    if type(value) is xf.Arr:
+        if value.rows * value.cols != 1:
+            raise xf.XlErr("#VALUE!")
+        return xf.raise_if_error(value.values[0])
+    return value
+
+
+def _result(value):
+    if type(value) is float:
+        if value - value != 0.0:
+            raise xf.XlErr("#NUM!")
+        return value
+    if type(value) is int:
+        return float(value)
+    if type(value) is xf.Arr:
+        return _single(value)
+    return value
+
+
+class _GeneralPath:
+    """One cell evaluated by the `formulas` package (functions outside the fast path)."""
+
+    def __init__(self, engine: Engine, sheet: str, formula: str) -> None:
+        os.environ.setdefault("TQDM_DISABLE", "1")
+        import formulas
+
+        self.engine, self.sheet, self.formula = engine, sheet, formula
+        try:
+            self.function = formulas.Parser().ast("=" + _expand_names(formula, engine.names))[1].compile()
+        except Exception as exc:
+            raise EvaluationError(f"sheet {sheet!r}: cannot evaluate formula ={formula} ({exc})") from None
+        self.inputs = [self._where(name) for name in self.function.inputs]
+
+    def _where(self, text: str):
+        match = _RANGE.match(text)
+        if match is None:
+            raise EvaluationError(f"sheet {self.sheet!r}: unsupported reference {text!r} in ={self.formula}")
+        sheet = match.group(1)
+        store = self.engine.stores[self.engine.sheet_name(sheet.strip("'").replace("''", "'"))] if sheet \
+            else self.engine.stores[self.sheet]
+        r0, c0 = int(match.group(5)) - 1, column_index(match.group(3).upper())
+        if match.group(7) is None:
+            return store, r0, c0, r0, c0
+        return store, r0, c0, int(match.group(9)) - 1, column_index(match.group(7).upper())
+
+    def __call__(self, _row: int):
+        import numpy as np
+        from formulas.tokens.operand import XlError
+
+        args = []
+        for store, r0, c0, r1, c1 in self.inputs:
+            block = A(store, r0, c0, r1, c1)
+            values = [_to_formulas(v) for v in block.values]
+            args.append(values[0] if len(values) == 1 else np.array(values, dtype=object).reshape(block.rows,
+                                                                                                  block.cols))
+        result = self.function(*args)
+        value = result.ravel()[0] if hasattr(result, "ravel") else result
+        if isinstance(value, XlError):
+            raise xf.XlErr(str(value))
+        if isinstance(value, np.bool_ | bool):
+            return bool(value)
+        if isinstance(value, np.generic):
+            value = value.item()
+        return float(value) if isinstance(value, int | float) else value
+
+
+def _to_formulas(value):
+    if type(value) is CellError:
+        from formulas.tokens.operand import XlError
+
+        return XlError(value.code)
+    if value is None:
+        from formulas.functions import EMPTY
+
+        return EMPTY
+    return value
+
+
+def _expand_names(formula: str, names: dict[str, str]) -> str:
+    if not names:
+        return formula
+
+    def swap(match: re.Match) -> str:
+        target = names.get(match.group(0).upper())
+        return target.lstrip("=") if target else match.group(0)
+
+    return re.sub(r'"(?:[^"]|"")*"|\b[A-Za-z_][\w.]*\b(?!\s*[(!])', lambda m: m.group(0) if m.group(0)[0] == '"'
+                  else swap(m), formula)
+
+
+def recalculate(book: Workbook) -> Recalculation:
+    """Compute every formula cell of ``book``."""
+    engine = Engine(book)
+    result = engine.run()
+    result.general = [(sheet, pos, f) for sheet, cells in book.sheets.items() for pos, f in cells.formulas.items()
+                      if isinstance(engine.stores[sheet].formulas[pos[0] * WIDTH + pos[1]][0], _GeneralPath)]
+    return result
+

@@ -1,0 +1,308 @@
+"""A fast, safe reader of .xlsx cells: formula text, cached values and constants, per sheet.
+
+Why not openpyxl here: verification must read a million cells in seconds, and openpyxl builds
+an object per cell. The worksheet XML is scanned with regular expressions instead, after the
+package is checked: the zip's declared sizes are capped before anything is inflated, and a
+document type declaration (the carrier of entity-expansion attacks) is refused. Small parts
+(workbook, relationships, shared strings) go through defusedxml.
+"""
+
+from __future__ import annotations
+
+import html
+import posixpath
+import re
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from defusedxml import ElementTree as SafeET
+
+from sheetnet.book.addresses import column_index
+from sheetnet.errors import WorkbookFormatError
+
+#: Refuse workbooks whose parts inflate to more than this (zip bombs).
+MAX_UNCOMPRESSED_BYTES = 2 * 1024**3
+MAX_COMPRESSION_RATIO = 200
+
+NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
+NS_REL = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
+NS_PKG = "http://schemas.openxmlformats.org/package/2006/relationships"
+
+_CELL = re.compile(r"<(?:\w+:)?c\b([^>]*?)(?:/>|>(.*?)</(?:\w+:)?c>)", re.S)
+_ATTR = re.compile(r'([\w:]+)="([^"]*)"')
+_F = re.compile(r"<(?:\w+:)?f\b([^>]*?)(?:/>|>(.*?)</(?:\w+:)?f>)", re.S)
+_V = re.compile(r"<(?:\w+:)?v>(.*?)</(?:\w+:)?v>", re.S)
+_T = re.compile(r"<(?:\w+:)?t\b[^>]*>(.*?)</(?:\w+:)?t>", re.S)
+_SHEET_STATE = re.compile(r"<(?:\w+:)?sheetData\b")
+_DIGITS = "0123456789"
+_ERRORS = ("#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A", "#GETTING_DATA")
+
+
+@dataclass(frozen=True)
+class CellError:
+    """A spreadsheet error value such as ``#DIV/0!``."""
+
+    code: str
+
+    def __str__(self) -> str:
+        return self.code
+
+
+@dataclass
+class SheetCells:
+    """One sheet: ``formulas[(row, col)]`` (text without '='), ``values[(row, col)]`` (constants
+    and cached formula results), 0-based positions."""
+
+    name: str
+    state: str = "visible"
+    formulas: dict[tuple[int, int], str] = field(default_factory=dict)
+    values: dict[tuple[int, int], object] = field(default_factory=dict)
+    shared: dict[tuple[int, int], str] = field(default_factory=dict)  # cells whose formula came from a shared one
+
+
+@dataclass
+class Workbook:
+    path: Path
+    sheets: dict[str, SheetCells]
+    names: dict[str, str]  # workbook-scoped defined names -> refers-to text (without '=')
+    local_names: list[tuple[str, str, str]]  # (sheet, name, refers-to) for sheet-scoped names
+    parts: list[str]
+
+    def sheet(self, name: str) -> SheetCells:
+        try:
+            return self.sheets[name]
+        except KeyError:
+            raise WorkbookFormatError(f"{self.path}: sheet {name!r} not found") from None
+
+
+def _check_package(zf: zipfile.ZipFile, path: Path) -> None:
+    total = 0
+    for info in zf.infolist():
+        total += info.file_size
+        if info.compress_size and info.file_size / info.compress_size > MAX_COMPRESSION_RATIO \
+                and info.file_size > 10 * 1024**2:
+            raise WorkbookFormatError(f"{path}: part {info.filename} inflates {info.file_size / info.compress_size:.0f}"
+                                      f"-fold; refused as a possible zip bomb")
+    if total > MAX_UNCOMPRESSED_BYTES:
+        raise WorkbookFormatError(
+            f"{path}: parts inflate to {total:,} bytes, over the {MAX_UNCOMPRESSED_BYTES:,} limit")
+
+
+def _xml(zf: zipfile.ZipFile, name: str):
+    try:
+        return SafeET.fromstring(zf.read(name))
+    except KeyError:
+        raise WorkbookFormatError(f"missing part {name}") from None
+    except Exception as exc:  # defusedxml raises its own classes for forbidden constructs
+        raise WorkbookFormatError(f"part {name} is not safe, well-formed XML ({type(exc).__name__})") from None
+
+
+def _text(zf: zipfile.ZipFile, name: str) -> str:
+    data = zf.read(name).decode("utf-8")
+    if "<!DOCTYPE" in data[:4096].upper() or "<!ENTITY" in data.upper():
+        raise WorkbookFormatError(f"part {name} declares a document type; refused (entity expansion)")
+    return data
+
+
+def _shared_strings(zf: zipfile.ZipFile, targets: dict[str, str]) -> list[str]:
+    name = next((t for t in targets.values() if t.endswith("sharedStrings.xml")), None)
+    if name is None or name not in zf.namelist():
+        return []
+    root = _xml(zf, name)
+    out = []
+    for si in root.iter(f"{{{NS_MAIN}}}si"):
+        out.append("".join(t.text or "" for t in si.iter(f"{{{NS_MAIN}}}t")))
+    return out
+
+
+def _unescape(text: str) -> str:
+    return html.unescape(text) if "&" in text else text
+
+
+def _value(kind: str, raw: str | None, inline: str | None, strings: list[str]) -> object:
+    if kind == "inlineStr":
+        return _unescape(inline or "")
+    if raw is None:
+        return None
+    raw = _unescape(raw)
+    if kind == "s":
+        return strings[int(raw)]
+    if kind in ("str", "e") or (kind == "" and raw in _ERRORS):
+        return CellError(raw) if kind == "e" or raw in _ERRORS else raw
+    if kind == "b":
+        return raw == "1"
+    return float(raw)
+
+
+
+
+_FAST_CELL = re.compile(r'<c r="([A-Z]{1,3})([0-9]+)"([^>]*?)(?:/>|>(?:<f([^>]*?)(?:/>|>([^<]*)</f>))?'
+                        r'(?:<v>([^<]*)</v>)?(?:<is>(.*?)</is>)?</c>)', re.S)
+
+
+def read_sheet_xml(name: str, state: str, data: str, strings: list[str]) -> SheetCells:
+    """All cells of one worksheet's XML.
+
+    The common shape of a cell (``r`` as its first attribute, formula, value, inline string) is read
+    with one regular expression over the whole sheet; if that does not account for every ``<c``
+    element, the sheet is read again cell by cell with a tolerant scanner.
+    """
+    body_start = _SHEET_STATE.search(data)
+    offset = body_start.start() if body_start else 0
+    cells = _FAST_CELL.findall(data, offset)
+    if len(cells) != data.count("<c ", offset):
+        return _read_sheet_slowly(name, state, data, strings, offset)
+    sheet = SheetCells(name=name, state=state)
+    columns: dict[str, int] = {}
+    values, formulas = sheet.values, sheet.formulas
+    shared: list[tuple[tuple[int, int], str, str]] = []
+    for letters, digits, attrs, fattrs, ftext, vtext, inline in cells:
+        col = columns.get(letters)
+        if col is None:
+            col = columns[letters] = column_index(letters)
+        pos = (int(digits) - 1, col)
+        kind = _attribute(attrs, "t") if ' t="' in attrs else ""
+        if ftext or fattrs:
+            if ' t="shared"' in fattrs:
+                shared.append((pos, _attribute(fattrs, "si"), _unescape(ftext)))
+            else:
+                formulas[pos] = _unescape(ftext)
+        if kind == "inlineStr":
+            values[pos] = _unescape("".join(_T.findall(inline)))
+        elif kind == "" and vtext and vtext[0] != "#":
+            values[pos] = float(vtext)
+        else:
+            values[pos] = _value(kind, vtext or None, None, strings)
+    _resolve_shared(sheet, shared)
+    return sheet
+
+
+def _resolve_shared(sheet: SheetCells, shared: list[tuple[tuple[int, int], str, str]]) -> None:
+    """Shared formulas: the master carries the text; the others are the master moved."""
+    masters = {si: (pos, text) for pos, si, text in shared if text}
+    for pos, si, text in shared:
+        if text:
+            sheet.formulas[pos] = text
+        elif si in masters:
+            origin, master = masters[si]
+            sheet.formulas[pos] = translate(master, pos[0] - origin[0], pos[1] - origin[1])
+            sheet.shared[pos] = si
+
+
+def _read_sheet_slowly(name: str, state: str, data: str, strings: list[str], offset: int) -> SheetCells:
+    sheet = SheetCells(name=name, state=state)
+    shared: list[tuple[tuple[int, int], str, str]] = []
+    for match in _CELL.finditer(data, offset):
+        attrs, body = match.group(1), match.group(2) or ""
+        ref = _attribute(attrs, "r")
+        letters = ref.rstrip(_DIGITS)
+        pos = (int(ref[len(letters):]) - 1, column_index(letters))
+        kind = _attribute(attrs, "t") if re.search(r'(?:^|\s)t="', attrs) else ""
+        f = _F.search(body)
+        if f is not None:
+            text = _unescape(f.group(2) or "")
+            if re.search(r'(?:^|\s)t="shared"', f.group(1)):
+                shared.append((pos, _attribute(f.group(1), "si"), text))
+            else:
+                sheet.formulas[pos] = text
+        v = _V.search(body)
+        inline = "".join(_T.findall(body)) if kind == "inlineStr" else None
+        sheet.values[pos] = _value(kind, v.group(1) if v else None, inline, strings)
+    _resolve_shared(sheet, shared)
+    return sheet
+
+
+def _attribute(attrs: str, name: str) -> str:
+    """The value of one attribute in a tag's attribute text."""
+    key = f' {name}="'
+    at = attrs.find(key)
+    if at < 0:
+        match = re.search(rf'(?:^|\s)(?:\w+:)?{name}="([^"]*)"', attrs)
+        if match is None:
+            raise WorkbookFormatError(f"a cell without its {name!r} attribute")
+        return match.group(1)
+    at += len(key)
+    return attrs[at:attrs.index('"', at)]
+
+
+def read_workbook(path: str | Path, sheets: list[str] | None = None) -> Workbook:
+    """Read cells of every sheet (or only ``sheets``), defined names and the part list."""
+    path = Path(path)
+    try:
+        zf = zipfile.ZipFile(path)
+    except FileNotFoundError:
+        raise WorkbookFormatError(f"{path}: file not found") from None
+    except (zipfile.BadZipFile, OSError) as exc:
+        raise WorkbookFormatError(f"{path}: not an .xlsx workbook ({exc})") from None
+    with zf:
+        _check_package(zf, path)
+        try:
+            return _read(zf, path, sheets)
+        except WorkbookFormatError as exc:
+            text = str(exc)
+            raise WorkbookFormatError(text if text.startswith(str(path)) else f"{path}: {text}") from None
+        except (KeyError, ValueError, IndexError, UnicodeDecodeError) as exc:
+            raise WorkbookFormatError(f"{path}: damaged workbook ({type(exc).__name__}: {exc})") from None
+
+
+def _rels(zf: zipfile.ZipFile, name: str) -> dict[str, str]:
+    folder = posixpath.dirname(posixpath.dirname(name))
+    root = _xml(zf, name)
+    out = {}
+    for rel in root.iter(f"{{{NS_PKG}}}Relationship"):
+        target = rel.get("Target", "")
+        if rel.get("TargetMode") == "External":
+            out[rel.get("Id")] = "external:" + target
+            continue
+        out[rel.get("Id")] = target.lstrip("/") if target.startswith("/") else posixpath.normpath(
+            posixpath.join(folder, target))
+    return out
+
+
+def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None) -> Workbook:
+    names = zf.namelist()
+    if "xl/workbook.xml" not in names:
+        raise WorkbookFormatError("no xl/workbook.xml: not a spreadsheet workbook")
+    book = _xml(zf, "xl/workbook.xml")
+    targets = _rels(zf, "xl/_rels/workbook.xml.rels")
+    strings = _shared_strings(zf, targets)
+    sheets: dict[str, SheetCells] = {}
+    order = []
+    for node in book.iter(f"{{{NS_MAIN}}}sheet"):
+        name = node.get("name")
+        order.append(name)
+        target = targets.get(node.get(f"{{{NS_REL}}}id"), "")
+        if wanted is not None and name not in wanted:
+            sheets[name] = SheetCells(name=name, state=node.get("state", "visible"))
+            continue
+        if target not in names:
+            sheets[name] = SheetCells(name=name, state=node.get("state", "visible"))
+            continue
+        sheets[name] = read_sheet_xml(name, node.get("state", "visible"), _text(zf, target), strings)
+    global_names, local = {}, []
+    for node in book.iter(f"{{{NS_MAIN}}}definedName"):
+        if node.get("localSheetId") is not None:
+            index = int(node.get("localSheetId"))
+            local.append((order[index] if index < len(order) else "?", node.get("name"), node.text or ""))
+        else:
+            global_names[node.get("name")] = node.text or ""
+    return Workbook(path=path, sheets=sheets, names=global_names, local_names=local, parts=names)
+
+
+_TRANSLATE = re.compile(
+    r"""("(?:[^"]|"")*")|((?:'(?:[^']|'')+'|[A-Za-z_][\w.]*)!)?(\$?)([A-Z]{1,3})(\$?)([0-9]+)(?![\w(!])""")
+
+
+def translate(formula: str, rows: int, cols: int) -> str:
+    """Shift the relative references of a formula (a shared formula's master, moved to a dependent)."""
+    from sheetnet.book.addresses import column_letters
+
+    def shift(match: re.Match) -> str:
+        if match.group(1):
+            return match.group(1)
+        col = column_index(match.group(4)) + (0 if match.group(3) else cols)
+        row = int(match.group(6)) + (0 if match.group(5) else rows)
+        return f"{match.group(2) or ''}{match.group(3)}{column_letters(col)}{match.group(5)}{row}"
+
+    return _TRANSLATE.sub(shift, formula)
