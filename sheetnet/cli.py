@@ -1,4 +1,4 @@
-"""The command line: ``sheetnet train | score | build | demo``.
+"""The command line: ``sheetnet train | score | build | demo | verify``.
 
 Thin by design: parse flags, call the library, print a summary. Every :class:`SheetNetError`
 becomes one line on stderr and its exit code (1 bad data, 2 bad usage); nothing else prints
@@ -8,6 +8,7 @@ a traceback except a genuine bug.
 from __future__ import annotations
 
 import argparse
+import json
 import sys
 from collections.abc import Sequence
 from dataclasses import replace
@@ -17,8 +18,9 @@ import numpy as np
 
 from sheetnet import __version__
 from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, verify
 from sheetnet.demo import DEMO_FLAGS, demo_csv_text
-from sheetnet.errors import SheetNetError, UsageError
+from sheetnet.errors import CannotVerifyError, EvaluationError, SheetNetError, UsageError, WorkbookFormatError
 from sheetnet.files import check_output, write_atomic, write_text_atomic
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
@@ -28,6 +30,7 @@ from sheetnet.net.model import load_model
 from sheetnet.net.score import score_table
 from sheetnet.net.train import TrainSettings
 from sheetnet.progress import Progress
+from sheetnet.report import verify_lines
 
 
 class _Parser(argparse.ArgumentParser):
@@ -147,6 +150,13 @@ def _parser() -> argparse.ArgumentParser:
     demo_p.add_argument("--out", type=Path, default=Path("sheetnet_demo"), help="folder to write into")
     demo_p.add_argument("--force", action="store_true", help="overwrite existing demo files")
     demo_p.add_argument("--quiet", action="store_true")
+    verify_p = commands.add_parser("verify", help="recalculate a workbook and compare it with the reference trainer")
+    verify_p.add_argument("book", type=Path)
+    verify_p.add_argument("--engine", choices=ENGINES, default="embedded")
+    verify_p.add_argument("--tolerance", type=_positive, default=DEFAULT_TOLERANCE,
+                          help="a cell agrees when |found - expected| <= tolerance * max(1, |expected|)")
+    verify_p.add_argument("--json", type=Path, help="write the report as JSON here")
+    verify_p.add_argument("--force", action="store_true", help="overwrite an existing JSON report")
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path)
     score_p.add_argument("data", type=Path)
@@ -288,7 +298,21 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return code
 
 
-COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo}
+def cmd_verify(args: argparse.Namespace) -> int:
+    if args.json:
+        check_output(args.json, args.force, inputs=[args.book])
+    try:
+        report = verify(args.book, engine=args.engine, tolerance=args.tolerance)
+    except (WorkbookFormatError, EvaluationError) as exc:
+        raise CannotVerifyError(f"cannot verify: {exc}") from None
+    print("\n".join(verify_lines(report)))
+    if args.json:
+        text = json.dumps(report.to_dict(), indent=2, default=str) + "\n"
+        write_text_atomic(args.json, text, force=args.force)
+    return 0 if report.ok else 1
+
+
+COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo, "verify": cmd_verify}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

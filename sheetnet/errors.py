@@ -35,6 +35,12 @@ class WorkbookFormatError(SheetNetError):
     """A workbook that cannot be read as a sheetnet workbook, or would break spreadsheet limits."""
 
 
+class CannotVerifyError(SheetNetError):
+    """A workbook that cannot be verified at all (not a sheetnet workbook, unreadable, no engine)."""
+
+    exit_code = 2
+
+
 class EvaluationError(SheetNetError):
     """A recalculation engine failed or is not available."""
 

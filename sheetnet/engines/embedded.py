@@ -22,8 +22,8 @@ from dataclasses import dataclass, field
 from openpyxl.formula.tokenizer import Token, Tokenizer
 
 from sheetnet.book.addresses import column_index
+from sheetnet.book.xlsxread import CellError, Workbook
 from sheetnet.engines import xlfuncs as xf
-from sheetnet.engines.xlsx import CellError, Workbook
 from sheetnet.errors import EvaluationError
 
 WIDTH = 16_384  # cell key = row * WIDTH + col

@@ -12,7 +12,7 @@ import math
 import re
 from dataclasses import dataclass
 
-from sheetnet.engines.xlsx import CellError
+from sheetnet.book.xlsxread import CellError
 
 
 class XlErr(Exception):

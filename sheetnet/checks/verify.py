@@ -1,0 +1,251 @@
+"""Verification: recompute a workbook with an engine and compare every formula cell with the
+reference trainer run on the inputs the file holds now.
+
+Three kinds of disagreement are told apart: cells whose formula is not what sheetnet writes there
+(the causes of tampering), values that differ from the reference (causes and their consequences),
+and cached values that differ from the recalculation (stale caches). Cells showing spreadsheet
+errors are listed as well.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import tempfile
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from sheetnet.book import plan
+from sheetnet.book.addresses import a1, quote_sheet
+from sheetnet.book.layout import BookLayout
+from sheetnet.book.numbers import compute
+from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
+from sheetnet.errors import WorkbookFormatError
+
+ENGINES = ("embedded", "libreoffice", "both")
+DEFAULT_TOLERANCE = 1e-9
+#: At most this many cells of each kind are listed in a report (all are counted).
+LIST_LIMIT = 1000
+
+def expected_entries(layout: BookLayout, numbers) -> Iterator[tuple[str, plan.Entry]]:
+    """(sheet name, entry) for every cell sheetnet writes, from the layout and the reference numbers."""
+    from sheetnet.book import layout as L
+
+    sheets = [(L.PARAMETERS, plan.parameter_entries), (L.CALCULATOR, plan.calculator_entries)]
+    if layout.spec.n_cases:
+        sheets.append((L.SCORING, plan.scoring_entries))
+    if layout.record is not None and numbers.record is not None:
+        sheets += [(L.SETUP, plan.setup_entries), (L.RECORD, plan.record_entries), (L.EPOCHS, plan.epoch_entries)]
+    for name, entries in sheets:
+        for entry in entries(layout, numbers):
+            yield name, entry
+
+
+_SPACE_OUTSIDE_STRINGS = re.compile(r'("(?:[^"]|"")*")|\s+')
+_NUMBER = re.compile(r'("(?:[^"]|"")*")|(?<![A-Za-z_$0-9.])([0-9]+\.?[0-9]*(?:[Ee][+-]?[0-9]+)?)(?![A-Za-z_(0-9])')
+
+
+def normalize_formula(text: str) -> str:
+    """Formula text compared without '=', spaces, case of names or the spelling of numbers
+    (LibreOffice writes 1E-12 as 1E-012)."""
+    text = text[1:] if text.startswith("=") else text
+    text = _SPACE_OUTSIDE_STRINGS.sub(lambda m: m.group(1) or "", text)
+    text = _NUMBER.sub(lambda m: m.group(1) or repr(float(m.group(2))), text)
+    parts = re.split(r'("(?:[^"]|"")*")', text)
+    return "".join(p if p.startswith('"') else p.upper().replace("_XLFN.", "") for p in parts)
+
+
+def agree(found, expected, tolerance: float) -> bool:
+    if isinstance(expected, float | int) and not isinstance(expected, bool):
+        if isinstance(found, bool) or not isinstance(found, float | int):
+            return False
+        return abs(found - expected) <= tolerance * max(1.0, abs(expected))
+    if expected is None or expected == "":
+        return found is None or found == ""
+    return str(found) == str(expected)
+
+
+def _cell(sheet: str, pos: tuple[int, int]) -> str:
+    return f"{quote_sheet(sheet)}!{a1(*pos)}"
+
+
+def _plain(value):
+    if isinstance(value, CellError):
+        return value.code
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    return value
+
+
+@dataclass
+class Comparison:
+    """The outcome for one engine."""
+
+    engine: str
+    tolerance: float
+    cells_compared: int = 0
+    per_sheet: dict[str, int] = field(default_factory=dict)
+    max_abs_diff: float = 0.0
+    max_abs_where: str = ""
+    max_rel_diff: float = 0.0
+    max_rel_where: str = ""
+    mismatches: list[dict] = field(default_factory=list)
+    mismatch_count: int = 0
+    first_mismatch: dict | None = None
+    formula_differences: list[dict] = field(default_factory=list)
+    errors: list[dict] = field(default_factory=list)
+    stale_cached: list[dict] = field(default_factory=list)
+    stale_count: int = 0
+    general_path: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not (self.mismatch_count or self.formula_differences or self.errors or self.stale_count)
+
+    def to_dict(self) -> dict:
+        return {
+            "ok": self.ok, "engine": self.engine, "tolerance": self.tolerance,
+            "cells_compared": self.cells_compared, "cells_per_sheet": self.per_sheet,
+            "max_abs_diff": self.max_abs_diff, "max_abs_diff_cell": self.max_abs_where,
+            "max_rel_diff": self.max_rel_diff, "max_rel_diff_cell": self.max_rel_where,
+            "mismatches": self.mismatches, "mismatch_count": self.mismatch_count,
+            "first_mismatch": self.first_mismatch, "formula_differences": self.formula_differences,
+            "errors": self.errors, "stale_cached": self.stale_cached, "stale_count": self.stale_count,
+            "general_path_cells": self.general_path,
+        }
+
+
+def _record_difference(report: Comparison, where: str, found, expected) -> None:
+    if not (isinstance(found, float) and isinstance(expected, float | int)):
+        return
+    diff = abs(found - expected)
+    if diff > report.max_abs_diff:
+        report.max_abs_diff, report.max_abs_where = diff, where
+    rel = diff / abs(expected) if expected else (0.0 if diff == 0 else math.inf)
+    if rel > report.max_rel_diff and math.isfinite(rel):
+        report.max_rel_diff, report.max_rel_where = rel, where
+
+
+def compare(book: Workbook, layout: BookLayout, engine_values: dict, engine: str, tolerance: float,
+            general: list | None = None) -> Comparison:
+    """Every expected formula cell against the file's formula text and the engine's value."""
+    report = Comparison(engine=engine, tolerance=tolerance)
+    numbers = compute(layout.spec, read_inputs(book, layout))
+    expected_cells: set[tuple[str, tuple[int, int]]] = set()
+    for sheet, entry in expected_entries(layout, numbers):
+        if entry.role != "formula":
+            continue
+        pos = (entry.row, entry.col)
+        expected_cells.add((sheet, pos))
+        where = _cell(sheet, pos)
+        cells = book.sheets.get(sheet)
+        found_formula = cells.formulas.get(pos) if cells else None
+        if found_formula is None:
+            found = None if cells is None else cells.values.get(pos)
+            report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": entry.content,
+                                               "found": _plain(found), "note": "a constant where a formula belongs"
+                                               if found is not None else "the formula is missing"})
+        elif normalize_formula(found_formula) != normalize_formula(entry.content):
+            report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": entry.content,
+                                               "found": "=" + found_formula, "note": "formula changed"})
+        value = engine_values.get(sheet, {}).get(pos) if found_formula is not None else \
+            (None if cells is None else cells.values.get(pos))
+        report.cells_compared += 1
+        report.per_sheet[sheet] = report.per_sheet.get(sheet, 0) + 1
+        _check_value(report, sheet, pos, where, value, entry.value)
+        if found_formula is not None and cells is not None:
+            _check_stale(report, sheet, pos, cells.values.get(pos), value)
+    _extra_formulas(report, book, expected_cells)
+    report.general_path = [_cell(s, p) for s, p, _ in (general or [])][:LIST_LIMIT]
+    return report
+
+
+def _check_value(report: Comparison, sheet: str, pos, where: str, value, expected) -> None:
+    if isinstance(value, CellError):
+        report.errors.append({"sheet": sheet, "cell": a1(*pos), "error": value.code})
+    _record_difference(report, where, value, expected)
+    if agree(value, expected, report.tolerance):
+        return
+    report.mismatch_count += 1
+    item = {"sheet": sheet, "cell": a1(*pos), "expected": _plain(expected), "found": _plain(value)}
+    if report.first_mismatch is None:
+        report.first_mismatch = item
+    if len(report.mismatches) < LIST_LIMIT:
+        report.mismatches.append(item)
+
+
+def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:
+    if cached is None or isinstance(value, CellError) or agree(cached, _plain(value), report.tolerance):
+        return
+    if isinstance(cached, CellError) and isinstance(value, CellError) and cached.code == value.code:
+        return
+    report.stale_count += 1
+    if len(report.stale_cached) < LIST_LIMIT:
+        report.stale_cached.append({"sheet": sheet, "cell": a1(*pos), "cached": _plain(cached),
+                                    "recalculated": _plain(value)})
+
+
+def _extra_formulas(report: Comparison, book: Workbook, expected: set) -> None:
+    from sheetnet.book.layout import LAYOUT
+
+    for sheet, cells in book.sheets.items():
+        if sheet == LAYOUT:
+            continue
+        for pos, formula in cells.formulas.items():
+            if (sheet, pos) not in expected:
+                report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": None,
+                                                   "found": "=" + formula, "note": "a formula sheetnet did not write"})
+
+
+def engine_values(book: Workbook, engine: str) -> tuple[dict, list]:
+    """Recalculated values of every formula cell, per sheet, and the general-path cells."""
+    if engine == "embedded":
+        from sheetnet.engines.embedded import recalculate
+
+        result = recalculate(book)
+        return result.values, result.general
+    from sheetnet.engines.libreoffice import recalculate as lo_recalculate
+
+    with tempfile.TemporaryDirectory(prefix="sheetnet-verify-") as tmp:
+        recalculated = read_workbook(lo_recalculate(book.path, Path(tmp)))
+    values = {name: {pos: cells.values.get(pos) for pos in cells.formulas}
+              for name, cells in recalculated.sheets.items()}
+    return values, []
+
+
+@dataclass
+class VerifyReport:
+    path: Path
+    comparisons: list[Comparison]
+
+    @property
+    def ok(self) -> bool:
+        return all(c.ok for c in self.comparisons)
+
+    def to_dict(self) -> dict:
+        first = self.comparisons[0].to_dict()
+        if len(self.comparisons) == 1:
+            return {**first, "file": str(self.path)}
+        merged = {"ok": self.ok, "engine": "both", "file": str(self.path), "tolerance": first["tolerance"],
+                  "engines": {c.engine: c.to_dict() for c in self.comparisons}}
+        for key in ("cells_compared", "max_abs_diff", "mismatches", "errors", "stale_cached", "formula_differences"):
+            values = [c.to_dict()[key] for c in self.comparisons]
+            merged[key] = max(values) if key in ("cells_compared", "max_abs_diff") else \
+                [dict(item, engine=c.engine) for c, items in zip(self.comparisons, values, strict=True)
+                 for item in items]
+        return merged
+
+
+def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAULT_TOLERANCE) -> VerifyReport:
+    """Verify a workbook; raises WorkbookFormatError when it cannot be verified at all."""
+    if engine not in ENGINES:
+        raise WorkbookFormatError(f"unknown engine {engine!r}; expected one of {', '.join(ENGINES)}")
+    book = read_workbook(path)
+    layout, _ = read_layout(book)
+    comparisons = []
+    for name in ("embedded", "libreoffice") if engine == "both" else (engine,):
+        values, general = engine_values(book, name)
+        comparisons.append(compare(book, layout, values, name, tolerance, general))
+    return VerifyReport(path=Path(path), comparisons=comparisons)

@@ -1,0 +1,53 @@
+"""Human-readable summaries of verification (and, later, audit) results. No logic, only wording."""
+
+from __future__ import annotations
+
+from sheetnet.checks.verify import Comparison, VerifyReport
+
+SHOWN = 5
+
+
+def _cells(items: list[dict], key: str = "cell") -> str:
+    names = [f"{i['sheet']}!{i[key]}" for i in items[:SHOWN]]
+    more = f" and {len(items) - SHOWN} more" if len(items) > SHOWN else ""
+    return ", ".join(names) + more
+
+
+def comparison_lines(c: Comparison) -> list[str]:
+    lines = [f"engine: {c.engine}; {c.cells_compared:,} formula cells compared (tolerance {c.tolerance:g})"]
+    lines += [f"  {sheet}: {count:,}" for sheet, count in c.per_sheet.items()]
+    lines.append(f"largest absolute difference {c.max_abs_diff:.3g}" + (f" at {c.max_abs_where}" if c.max_abs_where
+                                                                        else ""))
+    lines.append(f"largest relative difference {c.max_rel_diff:.3g}" + (f" at {c.max_rel_where}" if c.max_rel_where
+                                                                        else ""))
+    if c.formula_differences:
+        lines.append(f"{len(c.formula_differences)} cell(s) differ from what sheetnet writes: "
+                     + _cells(c.formula_differences))
+        for item in c.formula_differences[:SHOWN]:
+            lines.append(f"  {item['sheet']}!{item['cell']}: {item['note']}: expected {item['expected']}, "
+                         f"found {item['found']}")
+    if c.mismatch_count:
+        first = c.first_mismatch
+        lines.append(f"{c.mismatch_count:,} value(s) differ from the reference trainer; first at "
+                     f"{first['sheet']}!{first['cell']} (expected {first['expected']}, found {first['found']})")
+    if c.errors:
+        lines.append(f"{len(c.errors)} cell(s) show spreadsheet errors: " + _cells(c.errors))
+    if c.stale_count:
+        lines.append(f"{c.stale_count:,} cached value(s) are stale (saved value differs from the recalculation): "
+                     + _cells(c.stale_cached))
+    if c.general_path:
+        lines.append(f"{len(c.general_path)} cell(s) used the formulas package's general path: "
+                     + ", ".join(c.general_path[:SHOWN]))
+    return lines
+
+
+def verify_lines(report: VerifyReport) -> list[str]:
+    lines = [f"verifying {report.path}"]
+    for comparison in report.comparisons:
+        lines += comparison_lines(comparison)
+    if report.ok:
+        cells = report.comparisons[0].cells_compared
+        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer")
+    else:
+        lines.append("verdict: FAILED: the workbook does not reproduce the reference trainer (see above)")
+    return lines
