@@ -35,6 +35,7 @@ _RANGE = re.compile(r"^(?:('(?:[^']|'')+'|[^'!:]+)!)?(\$?)([A-Za-z]{1,3})(\$?)([
 PRECEDENCE = {"=": 1, "<>": 1, "<": 1, ">": 1, "<=": 1, ">=": 1, "&": 2, "+": 3, "-": 3, "*": 4, "/": 4, "^": 5}
 _ARRAY_OPS = {"+": "op_add", "-": "op_sub", "*": "op_mul", "/": "op_div", "^": "op_pow", "=": "op_eq",
               "<>": "op_ne", "<": "op_lt", "<=": "op_le", ">": "op_gt", ">=": "op_ge", "&": "op_cat"}
+_ARITHMETIC = {"+": "op_add", "-": "op_sub", "*": "op_mul", "/": "op_div", "^": "op_pow"}
 _COMPARE = {"=": "== 0", "<>": "!= 0", "<": "< 0", "<=": "<= 0", ">": "> 0", ">=": ">= 0"}
 
 
@@ -282,12 +283,8 @@ class _Compiler:
         a, b = self.code(left), self.code(right)
         if node.array:
             return f"EW({_ARRAY_OPS[op]},{a},{b})"
-        if op in ("+", "-", "*"):
-            return f"(N({a}){op}N({b}))"
-        if op == "/":
-            return f"DIV(N({a}),N({b}))"
-        if op == "^":
-            return f"POW(N({a}),N({b}))"
+        if op in _ARITHMETIC:
+            return f"{_ARITHMETIC[op]}({a},{b})"
         if op == "&":
             return f"(T({a})+T({b}))"
         return f"(CMP({a},{b}){_COMPARE[op]})"
@@ -298,6 +295,9 @@ class _Compiler:
         if name == "IF":
             otherwise = codes[2] if len(codes) == 3 else "False"
             return f"(({codes[1]}) if TRUTH({codes[0]}) else ({otherwise}))"
+        if name in xf.ARRAY_ARGUMENTS:  # a reference given to an aggregate is a range, even of one cell
+            codes = [self.code(Node("range", (*a.args, a.args[1], a.args[2]), True)) if a.kind == "ref" else code
+                     for a, code in zip(args, codes, strict=True)]
         function = f"f_{name.lower()}"
         if name in xf.ELEMENTWISE and node.array:
             return f"M({function},{codes[0]})"
@@ -541,9 +541,9 @@ def _to_formulas(value):
 
         return XlError(value.code)
     if value is None:
-        from formulas.functions import EMPTY
+        import schedula  # the `formulas` package's own marker of an empty cell
 
-        return EMPTY
+        return schedula.EMPTY
     return value
 
 

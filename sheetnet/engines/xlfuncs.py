@@ -103,10 +103,9 @@ def div(a: float, b: float) -> float:
 
 
 def power(a: float, b: float) -> float:
-    if a == 0 and b == 0:
-        raise XlErr("#NUM!")
+    """a^b; 0^0 is 1 and 0^-x is #NUM!, as LibreOffice computes them."""
     if a == 0 and b < 0:
-        raise XlErr("#DIV/0!")
+        raise XlErr("#NUM!")
     try:
         result = a**b
     except OverflowError:
@@ -176,23 +175,36 @@ def mapped(op, a) -> Arr:
     return Arr(a.rows, a.cols, [_safe(lambda x, _: op(x), x, None) for x in a.values])
 
 
+def errors_first(x, y) -> None:
+    """An error in either operand wins over a type problem in the other (as the formulas package does)."""
+    if type(x) is CellError:
+        raise XlErr(x.code)
+    if type(y) is CellError:
+        raise XlErr(y.code)
+
+
 def op_add(x, y):
+    errors_first(x, y)
     return finite(num(x) + num(y))
 
 
 def op_sub(x, y):
+    errors_first(x, y)
     return finite(num(x) - num(y))
 
 
 def op_mul(x, y):
+    errors_first(x, y)
     return finite(num(x) * num(y))
 
 
 def op_div(x, y):
+    errors_first(x, y)
     return div(num(x), num(y))
 
 
 def op_pow(x, y):
+    errors_first(x, y)
     return power(num(x), num(y))
 
 
@@ -312,9 +324,17 @@ def _as_array(arg) -> Arr:
     return arg if type(arg) is Arr else Arr(1, 1, [arg])
 
 
+def _first_error(arrays: list[Arr]) -> None:
+    for array in arrays:
+        for v in array.values:
+            if type(v) is CellError:
+                raise XlErr(v.code)
+
+
 def f_sumproduct(*args) -> float:
-    """Sum of element-wise products; non-numbers count as 0; shapes must agree."""
+    """Sum of element-wise products; non-numbers count as 0; shapes must agree (errors reported first)."""
     arrays = [_as_array(a) for a in args]
+    _first_error(arrays)
     shape = (arrays[0].rows, arrays[0].cols)
     if any((a.rows, a.cols) != shape for a in arrays):
         raise XlErr("#VALUE!")
@@ -332,14 +352,12 @@ def f_sumproduct(*args) -> float:
 def f_sumxmy2(x, y) -> float:
     """Sum of (x - y)^2 over pairs where both are numbers."""
     a, b = _as_array(x), _as_array(y)
+    _first_error([a, b])
     if len(a.values) != len(b.values):
         raise XlErr("#N/A")
-    terms = []
-    for u, v in zip(a.values, b.values, strict=True):
-        if type(u) is CellError or type(v) is CellError:
-            raise XlErr((u if type(u) is CellError else v).code)
-        if type(u) is float and type(v) is float:
-            terms.append((u - v) ** 2)
+    terms = [(u - v) ** 2 for u, v in zip(a.values, b.values, strict=True) if type(u) is float and type(v) is float]
+    if not terms:
+        raise XlErr("#DIV/0!")  # as the formulas package does when no pair is numeric
     return finite(math.fsum(terms))
 
 
@@ -381,7 +399,7 @@ def criterion(crit):
     if op == "<>":
         if number is None:
             pattern = _wildcard(operand)
-            return lambda v: not (type(v) is str and pattern.match(v))
+            return lambda v: (v is None or type(v) is str) and not pattern.match(v or "")
         return lambda v: not (type(v) is float and v == number)
     test = {"<": lambda c: c < 0, ">": lambda c: c > 0, "<=": lambda c: c <= 0, ">=": lambda c: c >= 0}[op]
     if number is None:
