@@ -89,7 +89,7 @@ def test_stale_cached_value_is_reported(book, tmp_path, run_cli):
             if item.filename == "xl/worksheets/sheet3.xml":  # the Calculator sheet
                 data = re.sub(rb"(<f>[^<]*</f><v>)[^<]*(</v>)", rb"\g<1>42\g<2>", data, count=1)
             dst.writestr(item, data)
-    code, out, data = _verify(run_cli, stale)
+    code, _out, data = _verify(run_cli, stale)
     assert code == 1 and data["stale_count"] == 1 and data["stale_cached"][0]["cached"] == 42.0
     assert not data["formula_differences"] and not data["mismatch_count"]
 
@@ -139,7 +139,7 @@ def test_saturated_network_verifies_without_errors(tmp_path, run_cli):
 def test_general_path_is_reported(book, tmp_path, run_cli):
     ws_cell = _first_formula(book, "Scoring", "loss", 1)
     edited = _edit(book, tmp_path / "round.xlsx", [("Scoring", ws_cell, lambda f: "=ROUND(" + f[1:] + ",20)")])
-    code, out, data = _verify(run_cli, edited)
+    code, _out, data = _verify(run_cli, edited)
     assert code == 1  # the formula is not what sheetnet writes ...
     assert [d["cell"] for d in data["formula_differences"]] == [ws_cell]
     assert data["general_path_cells"] == [f"Scoring!{ws_cell}"]  # ... and it was evaluated by the general path
@@ -161,6 +161,6 @@ def test_workbooks_from_open_data_verify(loader, tmp_path, run_cli):
     code, _, err = run_cli("build", data, "--target", "target", "--hidden", "3", "--epochs", "2", "--batch-size", "4",
                            "-o", book)
     assert code == 0, err
-    code, out, report = _verify(run_cli, book)
+    code, out, _report = _verify(run_cli, book)
     assert code == 0, out
 
