@@ -38,7 +38,7 @@ def ours(formula: str, cells: dict[tuple[int, int], object]):
     book = Workbook(path=Path("t.xlsx"), sheets={"S": sheet}, names={}, local_names=[], parts=[])
     engine = Engine(book)
     result = engine.run()
-    return result.values["S"][(9, 0)], type(engine.stores["S"].formulas[9 * 16384][0]).__name__
+    return result.values(book)["S"][(9, 0)], type(engine.stores["S"].formulas[9 * 16384][0]).__name__
 
 
 def theirs(formula: str, cells: dict[tuple[int, int], object]):

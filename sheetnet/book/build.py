@@ -16,6 +16,7 @@ from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.book.write import write_book
 from sheetnet.errors import UsageError, WorkbookFormatError
 from sheetnet.files import write_atomic
+from sheetnet.gcpause import paused_gc
 from sheetnet.net import data as dataio
 from sheetnet.net.fit import FitOutcome, fingerprint
 from sheetnet.net.model import Layer, Model
@@ -165,7 +166,8 @@ def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool =
     counted: list[int] = []
 
     def write(tmp: Path) -> None:
-        counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, sheets, fp)))
+        with paused_gc():
+            counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, sheets, fp)))
 
     write_atomic(Path(path), write, force=force)
     return BuildResult(path=Path(path), formula_cells=counted[0], layout=layout)

@@ -10,6 +10,8 @@ errors are listed as well.
 from __future__ import annotations
 
 import math
+import multiprocessing
+import os
 import re
 import tempfile
 from collections.abc import Iterator
@@ -22,7 +24,8 @@ from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
-from sheetnet.errors import WorkbookFormatError
+from sheetnet.errors import EvaluationError, WorkbookFormatError
+from sheetnet.gcpause import paused_gc
 
 ENGINES = ("embedded", "libreoffice", "both")
 DEFAULT_TOLERANCE = 1e-9
@@ -117,44 +120,33 @@ class Comparison:
         }
 
 
-def _record_difference(report: Comparison, where: str, found, expected) -> None:
-    if not (isinstance(found, float) and isinstance(expected, float | int)):
-        return
-    diff = abs(found - expected)
-    if diff > report.max_abs_diff:
-        report.max_abs_diff, report.max_abs_where = diff, where
-    rel = diff / abs(expected) if expected else (0.0 if diff == 0 else math.inf)
-    if rel > report.max_rel_diff and math.isfinite(rel):
-        report.max_rel_diff, report.max_rel_where = rel, where
+def expected_formulas(book: Workbook, layout: BookLayout) -> list[tuple[str, int, int, str, object]]:
+    """(sheet, row, col, formula, reference value) of every formula cell sheetnet writes, for the
+    inputs the file holds now (the reference trainer and scorer run here)."""
+    numbers = compute(layout.spec, read_inputs(book, layout))
+    return [(sheet, e.row, e.col, e.content, e.value) for sheet, e in expected_entries(layout, numbers)
+            if e.role == "formula"]
 
 
-def compare(book: Workbook, layout: BookLayout, engine_values: dict, engine: str, tolerance: float,
-            general: list | None = None) -> Comparison:
+def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], engine_values: dict, engine: str,
+            tolerance: float, general: list | None = None) -> Comparison:
     """Every expected formula cell against the file's formula text and the engine's value."""
     report = Comparison(engine=engine, tolerance=tolerance)
-    numbers = compute(layout.spec, read_inputs(book, layout))
     expected_cells: set[tuple[str, tuple[int, int]]] = set()
-    for sheet, entry in expected_entries(layout, numbers):
-        if entry.role != "formula":
-            continue
-        pos = (entry.row, entry.col)
+    for sheet, row, col, formula, reference in expected:
+        pos = (row, col)
         expected_cells.add((sheet, pos))
-        where = _cell(sheet, pos)
         cells = book.sheets.get(sheet)
         found_formula = cells.formulas.get(pos) if cells else None
-        if found_formula is None:
-            found = None if cells is None else cells.values.get(pos)
-            report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": entry.content,
-                                               "found": _plain(found), "note": "a constant where a formula belongs"
-                                               if found is not None else "the formula is missing"})
-        elif normalize_formula(found_formula) != normalize_formula(entry.content):
-            report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": entry.content,
-                                               "found": "=" + found_formula, "note": "formula changed"})
-        value = engine_values.get(sheet, {}).get(pos) if found_formula is not None else \
-            (None if cells is None else cells.values.get(pos))
+        if found_formula is None or found_formula != formula[1:]:
+            _formula_difference(report, sheet, pos, formula, found_formula, cells)
+        if found_formula is not None:
+            value = engine_values.get(sheet, {}).get(pos)
+        else:
+            value = None if cells is None else cells.values.get(pos)
         report.cells_compared += 1
         report.per_sheet[sheet] = report.per_sheet.get(sheet, 0) + 1
-        _check_value(report, sheet, pos, where, value, entry.value)
+        _check_value(report, sheet, pos, value, reference)
         if found_formula is not None and cells is not None:
             _check_stale(report, sheet, pos, cells.values.get(pos), value)
     _extra_formulas(report, book, expected_cells)
@@ -162,12 +154,32 @@ def compare(book: Workbook, layout: BookLayout, engine_values: dict, engine: str
     return report
 
 
-def _check_value(report: Comparison, sheet: str, pos, where: str, value, expected) -> None:
-    if isinstance(value, CellError):
-        report.errors.append({"sheet": sheet, "cell": a1(*pos), "error": value.code})
-    _record_difference(report, where, value, expected)
-    if agree(value, expected, report.tolerance):
-        return
+def _formula_difference(report: Comparison, sheet: str, pos, expected: str, found: str | None, cells) -> None:
+    if found is None:
+        value = None if cells is None else cells.values.get(pos)
+        note = "a constant where a formula belongs" if value is not None else "the formula is missing"
+        report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": expected,
+                                           "found": _plain(value), "note": note})
+    elif normalize_formula(found) != normalize_formula(expected):
+        report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": expected,
+                                           "found": "=" + found, "note": "formula changed"})
+
+
+def _check_value(report: Comparison, sheet: str, pos, value, expected) -> None:
+    if type(value) is float and type(expected) is float:
+        diff = abs(value - expected)
+        scale = abs(expected)
+        if diff > report.max_abs_diff:
+            report.max_abs_diff, report.max_abs_where = diff, _cell(sheet, pos)
+        if scale and diff / scale > report.max_rel_diff:
+            report.max_rel_diff, report.max_rel_where = diff / scale, _cell(sheet, pos)
+        if diff <= report.tolerance * (scale if scale > 1.0 else 1.0):
+            return
+    else:
+        if isinstance(value, CellError):
+            report.errors.append({"sheet": sheet, "cell": a1(*pos), "error": value.code})
+        if agree(value, expected, report.tolerance):
+            return
     report.mismatch_count += 1
     item = {"sheet": sheet, "cell": a1(*pos), "expected": _plain(expected), "found": _plain(value)}
     if report.first_mismatch is None:
@@ -177,9 +189,12 @@ def _check_value(report: Comparison, sheet: str, pos, where: str, value, expecte
 
 
 def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:
-    if cached is None or isinstance(value, CellError) or agree(cached, _plain(value), report.tolerance):
+    if cached is None or isinstance(value, CellError):
         return
-    if isinstance(cached, CellError) and isinstance(value, CellError) and cached.code == value.code:
+    if type(cached) is float and type(value) is float:
+        if abs(cached - value) <= report.tolerance * max(1.0, abs(value)):
+            return
+    elif agree(cached, _plain(value), report.tolerance):
         return
     report.stale_count += 1
     if len(report.stale_cached) < LIST_LIMIT:
@@ -205,7 +220,7 @@ def engine_values(book: Workbook, engine: str) -> tuple[dict, list]:
         from sheetnet.engines.embedded import recalculate
 
         result = recalculate(book)
-        return result.values, result.general
+        return result.ordered, result.general
     from sheetnet.engines.libreoffice import recalculate as lo_recalculate
 
     with tempfile.TemporaryDirectory(prefix="sheetnet-verify-") as tmp:
@@ -213,6 +228,54 @@ def engine_values(book: Workbook, engine: str) -> tuple[dict, list]:
     values = {name: {pos: cells.values.get(pos) for pos in cells.formulas}
               for name, cells in recalculated.sheets.items()}
     return values, []
+
+
+class Background:
+    """Run ``function(*args)`` in a forked child process and collect its result (or its exception).
+
+    Falls back to running in this process where fork is not available or there is one core.
+    """
+
+    def __init__(self, function, *args) -> None:
+        self._process = None
+        if "fork" not in multiprocessing.get_all_start_methods() or (os.cpu_count() or 1) < 2:
+            self._outcome = _outcome(function, args)
+            return
+        context = multiprocessing.get_context("fork")
+        self._receive, send = context.Pipe(duplex=False)
+        self._process = context.Process(target=_send_outcome, args=(send, function, args), daemon=True)
+        self._process.start()
+        send.close()
+
+    def result(self):
+        if self._process is not None:
+            try:
+                self._outcome = self._receive.recv()
+            except EOFError:
+                raise EvaluationError("the recalculation process ended unexpectedly") from None
+            self._process.join()
+            self._process = None
+        ok, payload = self._outcome
+        if not ok:
+            raise payload
+        return payload
+
+    def stop(self) -> None:
+        if self._process is not None and self._process.is_alive():
+            self._process.kill()
+            self._process.join()
+
+
+def _outcome(function, args) -> tuple[bool, object]:
+    try:
+        return True, function(*args)
+    except Exception as exc:
+        return False, exc
+
+
+def _send_outcome(send, function, args) -> None:
+    send.send(_outcome(function, args))
+    send.close()
 
 
 @dataclass
@@ -242,10 +305,27 @@ def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAUL
     """Verify a workbook; raises WorkbookFormatError when it cannot be verified at all."""
     if engine not in ENGINES:
         raise WorkbookFormatError(f"unknown engine {engine!r}; expected one of {', '.join(ENGINES)}")
+    with paused_gc():
+        return _verify(Path(path), engine, tolerance)
+
+
+def _verify(path: Path, engine: str, tolerance: float) -> VerifyReport:
     book = read_workbook(path)
     layout, _ = read_layout(book)
-    comparisons = []
-    for name in ("embedded", "libreoffice") if engine == "both" else (engine,):
-        values, general = engine_values(book, name)
-        comparisons.append(compare(book, layout, values, name, tolerance, general))
+    names = ("embedded", "libreoffice") if engine == "both" else (engine,)
+    # The engines recalculate in child processes while this one runs the reference: both need
+    # only the file, and a 2-core machine does the two at once.
+    running = [(name, Background(engine_values, book, name)) for name in names]
+    try:
+        expected = expected_formulas(book, layout)
+        comparisons = []
+        for name, job in running:
+            values, general = job.result()
+            if name == "embedded":  # sent compactly, in the order of the file's formula cells
+                values = {sheet: dict(zip(book.sheets[sheet].formulas, items, strict=True))
+                          for sheet, items in values.items()}
+            comparisons.append(compare(book, expected, values, name, tolerance, general))
+    finally:
+        for _, job in running:
+            job.stop()
     return VerifyReport(path=Path(path), comparisons=comparisons)

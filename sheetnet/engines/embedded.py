@@ -18,6 +18,7 @@ from __future__ import annotations
 import os
 import re
 from dataclasses import dataclass, field
+from operator import itemgetter
 
 from openpyxl.formula.tokenizer import Token, Tokenizer
 
@@ -35,7 +36,7 @@ _RANGE = re.compile(r"^(?:('(?:[^']|'')+'|[^'!:]+)!)?(\$?)([A-Za-z]{1,3})(\$?)([
 PRECEDENCE = {"=": 1, "<>": 1, "<": 1, ">": 1, "<=": 1, ">=": 1, "&": 2, "+": 3, "-": 3, "*": 4, "/": 4, "^": 5}
 _ARRAY_OPS = {"+": "op_add", "-": "op_sub", "*": "op_mul", "/": "op_div", "^": "op_pow", "=": "op_eq",
               "<>": "op_ne", "<": "op_lt", "<=": "op_le", ">": "op_gt", ">=": "op_ge", "&": "op_cat"}
-_ARITHMETIC = {"+": "op_add", "-": "op_sub", "*": "op_mul", "/": "op_div", "^": "op_pow"}
+_ARITHMETIC = {"+": "ADD", "-": "SUB", "*": "MUL", "/": "DIV2", "^": "POW2"}
 _COMPARE = {"=": "== 0", "<>": "!= 0", "<": "< 0", "<=": "<= 0", ">": "> 0", ">=": ">= 0"}
 
 
@@ -96,7 +97,8 @@ def _raise(code: str):
 
 
 RUNTIME = {name: getattr(xf, name) for name in dir(xf) if name.startswith(("op_", "f_"))}
-RUNTIME.update(V=V, A=A, N=xf.num, T=xf.text, TRUTH=xf.truth, DIV=xf.div, POW=xf.power, CMP=xf.compare,
+RUNTIME.update(ADD=xf.add, SUB=xf.sub, MUL=xf.mul, DIV2=xf.divide, POW2=xf.raise_to,
+               V=V, A=A, N=xf.num, T=xf.text, TRUTH=xf.truth, DIV=xf.div, POW=xf.power, CMP=xf.compare,
                EW=xf.elementwise, M=xf.mapped, RAISE=_raise, neg=lambda x: -xf.num(x))
 
 
@@ -219,9 +221,16 @@ class _Parser:
 
 
 class _Compiler:
-    def __init__(self, engine: Engine, host_sheet: str, host_row: int) -> None:
-        self.engine, self.host_sheet, self.host_row = engine, host_sheet, host_row
+    """Generates Python for one formula shape. A reference's row is read from ``R`` (the integers of
+    the formula's own digit runs) at that reference's position, so one function serves every cell
+    of the same shape whatever its rows."""
+
+    def __init__(self, engine: Engine, host_sheet: str, formula: str) -> None:
+        self.engine, self.host_sheet = engine, host_sheet
         self.stores: dict[str, str] = {}
+        starts = {m.start(): n for n, m in enumerate(_RUNS.finditer(formula))}
+        self.runs = _RUNS.findall(formula)
+        self.row_runs = iter([starts[m.start(5)] for m in _KEY.finditer(formula) if m.group(5)])
 
     def store(self, sheet: str) -> str:
         name = self.engine.sheet_name(sheet)
@@ -231,6 +240,7 @@ class _Compiler:
 
     def resolve(self, text: str) -> Node:
         match = _RANGE.match(text)
+        row = self.row
         if match is None:
             target = self.engine.names.get(text.upper())
             if target is None:
@@ -238,22 +248,22 @@ class _Compiler:
             match = _RANGE.match(target.lstrip("="))
             if match is None:
                 raise Unsupported(f"name {text!r} refers to {target!r}")
+            row = _fixed_row  # a defined name's rows are in its definition, not in the formula
         sheet = match.group(1)
         sheet = self.host_sheet if sheet is None else sheet.strip("'").replace("''", "'")
-        row0 = self.row(match.group(4), match.group(5))
+        row0 = row(match.group(4), match.group(5))
         col0 = column_index(match.group(3).upper())
         if match.group(7) is None:
             return Node("ref", (sheet, row0, col0))
-        row1 = self.row(match.group(8), match.group(9))
+        row1 = row(match.group(8), match.group(9))
         col1 = column_index(match.group(7).upper())
         return Node("range", (sheet, row0, col0, row1, col1), True)
 
     def row(self, dollar: str, digits: str) -> str:
-        row = int(digits) - 1
-        if dollar:
-            return str(row)
-        offset = row - self.host_row
-        return "r" if offset == 0 else f"(r{offset:+d})"
+        index = next(self.row_runs, None)
+        if index is None or self.runs[index] != digits:
+            raise Unsupported("references not in the expected order")
+        return f"(R[{index}]-1)"
 
     def code(self, node: Node) -> str:
         kind = node.kind
@@ -311,14 +321,15 @@ class _Compiler:
 class Recalculation:
     """Computed values of every formula cell, per sheet (0-based (row, col) keys)."""
 
-    values: dict[str, dict[tuple[int, int], object]]
+    ordered: dict[str, list]  # per sheet, values in the order of the workbook's formula cells (compact to send)
     general: list[tuple[str, tuple[int, int], str]]
     templates: int
     formula_cells: int
 
-    def errors(self) -> list[tuple[str, tuple[int, int], str]]:
-        return [(sheet, pos, v.code) for sheet, cells in self.values.items() for pos, v in cells.items()
-                if type(v) is CellError]
+    def values(self, book: Workbook) -> dict[str, dict[tuple[int, int], object]]:
+        """Per sheet, (row, col) -> value."""
+        return {name: dict(zip(book.sheets[name].formulas, values, strict=True))
+                for name, values in self.ordered.items()}
 
 
 class Engine:
@@ -336,48 +347,44 @@ class Engine:
             raise Unsupported(f"reference to a sheet that does not exist: {name!r}")
         return found
 
-    def compile_template(self, sheet: str, row: int, formula: str):
-        compiler = _Compiler(self, sheet, row)
+    def compile_template(self, sheet: str, formula: str):
+        compiler = _Compiler(self, sheet, formula)
         node = _Parser(formula, compiler.resolve).parse()
         body = compiler.code(node)
         if node.array:
             body = f"_single({body})"
         namespace = dict(RUNTIME, _single=_single)
         namespace.update({alias: self.stores[name] for name, alias in compiler.stores.items()})
-        exec(f"def _cell(r):\n    return {body}\n", namespace)
+        exec(f"def _cell(r, R):\n    return {body}\n", namespace)
         return namespace["_cell"]
 
     def evaluator(self, sheet: str, row: int, formula: str):
-        """The function that computes a cell: a shared compiled template, a link, or the general path."""
+        """(function, row numbers) that compute a cell: a shared compiled shape, a link, or the general path.
+
+        Formulas that differ only in the row numbers of their references share one compiled
+        function. The formula with every digit turned into 0 fixes the syntax; which digit runs are
+        row numbers is found once per shape; the other runs (constants) are part of the key.
+        """
         pure = _PURE_REF.match(formula)
         if pure:
             link = self._link(sheet, row, pure)
             if link is not None:
-                return link
-        key = self._template_key(sheet, row, formula)
+                return link, ()
+        runs = _RUNS.findall(formula)
+        shape = formula.translate(_ZEROS)
+        constants = self.masks.get((sheet, shape))
+        if constants is None:
+            indices = _constant_runs(formula)
+            constants = self.masks[sheet, shape] = itemgetter(*indices) if indices else _nothing
+        key = (sheet, shape, constants(runs))
         function = self.templates.get(key)
         if function is None:
             try:
-                function = self.compile_template(sheet, row, formula)
+                function = self.compile_template(sheet, formula)
             except (Unsupported, SyntaxError, RecursionError):
-                function = _GeneralPath(self, sheet, formula)
-            if not isinstance(function, _GeneralPath):
-                self.templates[key] = function
-        return function
-
-    def _template_key(self, sheet: str, row: int, formula: str) -> tuple:
-        """Formulas equal up to relative row offsets get equal keys.
-
-        The formula with every digit turned into 0 fixes the syntax (which digit runs are relative
-        row numbers, which are constants); that shape's mask is found once with a full reference
-        scan. Relative row numbers then enter the key as offsets, every other digit run as text.
-        """
-        shape = formula.translate(_ZEROS)
-        runs = _RUNS.findall(formula)
-        mask = self.masks.get((sheet, shape))
-        if mask is None:
-            mask = self.masks[sheet, shape] = _relative_rows(formula)
-        return (sheet, shape, *[int(d) - row if relative else d for d, relative in zip(runs, mask, strict=True)])
+                return _GeneralPath(self, sheet, formula), ()
+            self.templates[key] = function
+        return function, tuple(map(int, runs))
 
     def _link(self, sheet: str, row: int, match: re.Match):
         prefix = match.group(1)
@@ -386,12 +393,8 @@ class Engine:
                 else self.stores[sheet]
         except Unsupported:
             return None
-        col = column_index(match.group(3))
-        r = int(match.group(5)) - 1
-        if match.group(4):
-            return lambda _row, s=target, rr=r, c=col: V(s, rr, c)
-        offset = r - row
-        return lambda host, s=target, o=offset, c=col: V(s, host + o, c)
+        row_index, col = int(match.group(5)) - 1, column_index(match.group(3))
+        return lambda _row, _runs, s=target, rr=row_index, c=col: V(s, rr, c)
 
     def run(self) -> Recalculation:
         order = []
@@ -402,23 +405,24 @@ class Engine:
                     store.const[row * WIDTH + col] = value
             for (row, col), formula in sorted(cells.formulas.items()):
                 key = row * WIDTH + col
-                store.formulas[key] = (self.evaluator(name, row, formula), row)
+                store.formulas[key] = (*self.evaluator(name, row, formula), row)
                 order.append((store, key))
         deferred = self._first_pass(order)
         for store, key in deferred:
             if key not in store.out:
                 self._compute(store, key)
-        values = {name: {divmod(k, WIDTH): v for k, v in store.out.items()} for name, store in self.stores.items()}
-        return Recalculation(values=values, general=[], templates=len(self.templates), formula_cells=len(order))
+        ordered = {name: [self.stores[name].out[r * WIDTH + c] for r, c in cells.formulas]
+                   for name, cells in self.book.sheets.items()}
+        return Recalculation(ordered=ordered, general=[], templates=len(self.templates), formula_cells=len(order))
 
     @staticmethod
     def _first_pass(order: list[tuple[Store, int]]) -> list[tuple[Store, int]]:
         """Compute in sheet and row order; a cell whose inputs are not ready is put off, not chased."""
         deferred = []
         for store, key in order:
-            function, row = store.formulas[key]
+            function, runs, row = store.formulas[key]
             try:
-                value = _result(function(row))
+                value = _result(function(row, runs))
             except NotReady:
                 deferred.append((store, key))
                 continue
@@ -438,9 +442,9 @@ class Engine:
                 stack.pop()
                 active.discard((id(s), k))
                 continue
-            function, row = s.formulas[k]
+            function, runs, row = s.formulas[k]
             try:
-                value = _result(function(row))
+                value = _result(function(row, runs))
             except NotReady as wait:
                 ident = (id(wait.store), wait.key)
                 if ident in active:
@@ -462,10 +466,18 @@ _ZEROS = str.maketrans("123456789", "000000000")
 _RUNS = re.compile(r"[0-9]+")
 
 
-def _relative_rows(formula: str) -> tuple[bool, ...]:
-    """For each digit run of the formula: is it the row number of a relative cell reference?"""
-    relative = {m.start(5) for m in _KEY.finditer(formula) if m.group(5) and not m.group(4)}
-    return tuple(m.start() in relative for m in _RUNS.finditer(formula))
+def _constant_runs(formula: str) -> tuple[int, ...]:
+    """Indices of the digit runs that are not row numbers of cell references (constants, names)."""
+    rows = {m.start(5) for m in _KEY.finditer(formula) if m.group(5)}
+    return tuple(n for n, m in enumerate(_RUNS.finditer(formula)) if m.start() not in rows)
+
+
+def _nothing(_runs: list) -> tuple:
+    return ()
+
+
+def _fixed_row(_dollar: str, digits: str) -> str:
+    return str(int(digits) - 1)
 
 
 def _single(value):
@@ -514,7 +526,7 @@ class _GeneralPath:
             return store, r0, c0, r0, c0
         return store, r0, c0, int(match.group(9)) - 1, column_index(match.group(7).upper())
 
-    def __call__(self, _row: int):
+    def __call__(self, _row: int, _runs: tuple = ()):
         import numpy as np
         from formulas.tokens.operand import XlError
 

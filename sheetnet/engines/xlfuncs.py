@@ -175,6 +175,39 @@ def mapped(op, a) -> Arr:
     return Arr(a.rows, a.cols, [_safe(lambda x, _: op(x), x, None) for x in a.values])
 
 
+# Scalar operators: both operands are evaluated before either is coerced, so an error in either
+# operand wins (references raise their errors when read); overflow to infinity is #NUM!.
+
+
+def add(x, y) -> float:
+    v = num(x) + num(y)
+    if v - v != 0.0:
+        raise XlErr("#NUM!")
+    return v
+
+
+def sub(x, y) -> float:
+    v = num(x) - num(y)
+    if v - v != 0.0:
+        raise XlErr("#NUM!")
+    return v
+
+
+def mul(x, y) -> float:
+    v = num(x) * num(y)
+    if v - v != 0.0:
+        raise XlErr("#NUM!")
+    return v
+
+
+def divide(x, y) -> float:
+    return div(num(x), num(y))
+
+
+def raise_to(x, y) -> float:
+    return power(num(x), num(y))
+
+
 def errors_first(x, y) -> None:
     """An error in either operand wins over a type problem in the other (as the formulas package does)."""
     if type(x) is CellError:

@@ -1,0 +1,100 @@
+"""Verification speed and memory, as ratios against baselines measured in the same run on the same files.
+
+1. ~400k formula cells: `sheetnet verify` (embedded engine: read, reference trainer, recalculation,
+   comparison) against LibreOffice's headless recalculation of the same file, start-up included
+   (target ratio <= 1.0), and the verify's peak memory, children included (target < 1 GB).
+2. ~40k formula cells: the embedded engine's recalculation against the `formulas` package's
+   whole-workbook model (loads + finish + calculate) (target: at least 100x faster).
+3. ~1M formula cells: `sheetnet verify` wall time (target < 60 s on a 2-core machine).
+
+Run: python benchmarks/bench_verify.py [400k] [40k] [1M]
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROWS = 200
+PER_ROW = 45  # formula cells per record row of the 4-3-1 network with batch size 1
+
+
+def build(path: Path, cells: int) -> int:
+    sys.path.insert(0, str(Path(__file__).parent))
+    from bench_build import _table
+
+    from sheetnet.book.build import RecordOptions, from_fit, write_workbook
+    from sheetnet.net.fit import Architecture, fit
+    from sheetnet.net.train import TrainSettings
+
+    table = _table(ROWS)
+    settings = TrainSettings(learning_rate=0.1, epochs=max(1, round(cells / (ROWS * PER_ROW))), batch_size=1, seed=0)
+    outcome = fit(table, ("label",), settings, Architecture(hidden=(3,)), holdout=0.0)
+    spec, inputs = from_fit(outcome, table, settings, RecordOptions())
+    return write_workbook(spec, inputs, path, max_cells=10**8).formula_cells
+
+
+def timed(command: list[str]) -> tuple[float, float]:
+    """Wall seconds and peak resident MB of a command run in a child process (its children included)."""
+    start = time.perf_counter()
+    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    subprocess.run(command, check=True, capture_output=True)
+    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    return time.perf_counter() - start, max(peak, before) / 1024
+
+
+def verify_against_libreoffice(folder: Path, cells: int) -> None:
+    book = folder / "big.xlsx"
+    count = build(book, cells)
+    ours, peak = timed([sys.executable, "-m", "sheetnet", "verify", str(book)])
+    lo, _ = timed([sys.executable, "-c", "import sys; from pathlib import Path; "
+                   "from sheetnet.engines.libreoffice import recalculate; "
+                   f"recalculate(Path({str(book)!r}), Path({str(folder / 'lo')!r}))"])
+    print(f"{count:>9,} cells  verify (embedded) {ours:6.1f} s  LibreOffice recalculation {lo:6.1f} s  "
+          f"ratio {ours / lo:5.2f} (target <= 1.0)  verify peak memory {peak:5.0f} MB (target < 1024)")
+
+
+def engine_against_formulas(folder: Path, cells: int) -> None:
+    book = folder / "mid.xlsx"
+    count = build(book, cells)
+    code = ("import os, time; os.environ['TQDM_DISABLE'] = '1'\n"
+            "from sheetnet.book.xlsxread import read_workbook\nfrom sheetnet.engines.embedded import recalculate\n"
+            "import formulas\n"
+            f"t = time.perf_counter(); recalculate(read_workbook({str(book)!r})); ours = time.perf_counter() - t\n"
+            f"t = time.perf_counter(); formulas.ExcelModel().loads({str(book)!r}).finish().calculate()\n"
+            "theirs = time.perf_counter() - t\nprint(ours, theirs)")
+    out = subprocess.run([sys.executable, "-c", code], check=True, capture_output=True, text=True)
+    ours, theirs = map(float, out.stdout.split())
+    print(f"{count:>9,} cells  embedded recalculation {ours:6.2f} s  formulas package model {theirs:7.1f} s  "
+          f"speed-up {theirs / ours:6.0f}x (target >= 100x)")
+
+
+def million(folder: Path) -> None:
+    book = folder / "million.xlsx"
+    count = build(book, 1_000_000)
+    ours, peak = timed([sys.executable, "-m", "sheetnet", "verify", str(book)])
+    print(f"{count:>9,} cells  verify (embedded) {ours:6.1f} s (target < 60 s)  peak memory {peak:5.0f} MB")
+
+
+def main() -> None:
+    wanted = sys.argv[1:] or ["400k", "40k", "1M"]
+    os.environ.setdefault("TQDM_DISABLE", "1")
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        if "400k" in wanted:
+            verify_against_libreoffice(folder, 400_000)
+        if "40k" in wanted:
+            engine_against_formulas(folder, 40_000)
+        if "1M" in wanted:
+            million(folder)
+    print(json.dumps({"machine_cores": os.cpu_count()}))
+
+
+if __name__ == "__main__":
+    main()
