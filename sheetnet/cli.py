@@ -1,4 +1,4 @@
-"""The command line: ``sheetnet train | score | build | demo | verify``.
+"""The command line: ``sheetnet train | score | build | demo | verify | audit | extract``.
 
 Thin by design: parse flags, call the library, print a summary. Every :class:`SheetNetError`
 becomes one line on stderr and its exit code (1 bad data, 2 bad usage); nothing else prints
@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from collections.abc import Sequence
 from dataclasses import replace
@@ -18,6 +19,9 @@ import numpy as np
 
 from sheetnet import __version__
 from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.checks.annotate import annotate
+from sheetnet.checks.audit import audit
+from sheetnet.checks.extract import extract
 from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, verify
 from sheetnet.demo import DEMO_FLAGS, demo_csv_text
 from sheetnet.errors import CannotVerifyError, EvaluationError, SheetNetError, UsageError, WorkbookFormatError
@@ -30,7 +34,7 @@ from sheetnet.net.model import load_model
 from sheetnet.net.score import score_table
 from sheetnet.net.train import TrainSettings
 from sheetnet.progress import Progress
-from sheetnet.report import verify_lines
+from sheetnet.report import audit_lines, verify_lines
 
 
 class _Parser(argparse.ArgumentParser):
@@ -157,6 +161,18 @@ def _parser() -> argparse.ArgumentParser:
                           help="a cell agrees when |found - expected| <= tolerance * max(1, |expected|)")
     verify_p.add_argument("--json", type=Path, help="write the report as JSON here")
     verify_p.add_argument("--force", action="store_true", help="overwrite an existing JSON report")
+    audit_p = commands.add_parser("audit", help="find exactly what changed in an edited workbook")
+    audit_p.add_argument("book", type=Path)
+    audit_p.add_argument("--against", type=Path, help="the original workbook to compare with")
+    audit_p.add_argument("--json", type=Path, help="write the findings as JSON here")
+    audit_p.add_argument("--annotate", type=Path, help="write a copy with every finding highlighted")
+    audit_p.add_argument("--force", action="store_true", help="overwrite existing report files")
+    extract_p = commands.add_parser("extract", help="read the (edited) parameters back as a model file")
+    extract_p.add_argument("book", type=Path)
+    extract_p.add_argument("--after-training", action="store_true",
+                           help="take the parameters after the last step of the training record")
+    extract_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
+    extract_p.add_argument("--force", action="store_true")
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path)
     score_p.add_argument("data", type=Path)
@@ -312,7 +328,31 @@ def cmd_verify(args: argparse.Namespace) -> int:
     return 0 if report.ok else 1
 
 
-COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo, "verify": cmd_verify}
+def cmd_audit(args: argparse.Namespace) -> int:
+    sources = [p for p in (args.book, args.against) if p]
+    for path in (args.json, args.annotate):
+        if path:
+            check_output(path, args.force, inputs=sources)
+    report = audit(args.book, against=args.against)
+    print("\n".join(audit_lines(report)))
+    if args.json:
+        write_text_atomic(args.json, json.dumps(report.to_dict(), indent=2, default=str) + "\n", force=args.force)
+    if args.annotate:
+        annotate(args.book, report, args.annotate, force=args.force)
+        print(f"annotated copy written to {args.annotate}")
+    return 3 if report.total else 0
+
+
+def cmd_extract(args: argparse.Namespace) -> int:
+    check_output(args.out, args.force, inputs=[args.book])
+    model, note = extract(args.book, after_training=args.after_training)
+    model.save(args.out, force=args.force)
+    print(f"{note}; model written to {args.out}")
+    return 0
+
+
+COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo, "verify": cmd_verify,
+            "audit": cmd_audit, "extract": cmd_extract}
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -326,6 +366,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("sheetnet: interrupted", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug: still one line, never a traceback (set SHEETNET_DEBUG=1 to see it)
+        if os.environ.get("SHEETNET_DEBUG"):
+            raise
+        print(f"sheetnet: internal error ({type(exc).__name__}: {exc}); please report it", file=sys.stderr)
+        return 70
 
 
 if __name__ == "__main__":

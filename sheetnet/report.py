@@ -51,3 +51,38 @@ def verify_lines(report: VerifyReport) -> list[str]:
     else:
         lines.append("verdict: FAILED: the workbook does not reproduce the reference trainer (see above)")
     return lines
+
+
+AUDIT_TITLES = {"structural": "Structure", "formula_edits": "Formula edits", "value_mismatches": "Value mismatches",
+                "input_edits": "Input edits", "risks": "Risks"}
+
+
+def audit_lines(report) -> list[str]:
+    """Findings grouped by kind, most consequential first, and a one-line verdict."""
+    from sheetnet.checks.audit import KINDS
+
+    lines = [f"auditing {report.path} against the {report.reference}"]
+    for kind in KINDS:
+        count = report.counts.get(kind, 0)
+        if not count:
+            continue
+        lines.append(f"{AUDIT_TITLES[kind]} ({count}):")
+        shown = report.of(kind)
+        for finding in shown[:20]:
+            where = f"{finding.sheet}!{finding.cell}" if finding.sheet and finding.cell else \
+                finding.sheet or finding.cell
+            detail = ""
+            if finding.expected is not None or finding.found is not None:
+                detail = f" (expected {finding.expected!r}, found {finding.found!r})"
+            lines.append(f"  {where}: {finding.note}{detail}")
+        if count > 20:
+            lines.append(f"  ... and {count - 20} more (see --json)")
+    lines += [f"note: {note}" for note in report.notes]
+    if report.first_diverging_step is not None:
+        lines.append(f"the training record first diverges from the reference at step {report.first_diverging_step}")
+    if report.total:
+        summary = ", ".join(f"{report.counts[k]} {AUDIT_TITLES[k].lower()}" for k in KINDS if report.counts.get(k))
+        lines.append(f"verdict: CHANGED: {summary}")
+    else:
+        lines.append("verdict: UNCHANGED: no edits, structural changes or risks found")
+    return lines

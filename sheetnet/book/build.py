@@ -167,7 +167,7 @@ def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool =
 
     def write(tmp: Path) -> None:
         with paused_gc():
-            counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, sheets, fp)))
+            counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, inputs, sheets, fp)))
 
     write_atomic(Path(path), write, force=force)
     return BuildResult(path=Path(path), formula_cells=counted[0], layout=layout)

@@ -11,10 +11,13 @@ import hashlib
 import json
 from typing import Any
 
+import numpy as np
+
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.spec import BookSpec, RecordSpec
+from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.net.activations import Activation
+from sheetnet.net.model import Layer
 
 FORMAT = "sheetnet-layout"
 VERSION = 1
@@ -71,7 +74,38 @@ def spec_from_dict(data: dict[str, Any]) -> BookSpec:
         raise WorkbookFormatError(f"the workbook's layout description is damaged ({exc!r})") from None
 
 
-def describe(layout: BookLayout, sheets: list[str], fingerprints: Fingerprints) -> str:
+def _layers_to_list(layers) -> list:
+    return [{"weights": layer.weights.tolist(), "bias": layer.bias.tolist()} for layer in layers]
+
+
+def inputs_to_dict(inputs: BookInputs) -> dict[str, Any]:
+    """The editable values as built, so an audit can say exactly which changed and from what."""
+    return {
+        "layers": _layers_to_list(inputs.layers), "offset": inputs.offset.tolist(),
+        "divisor": inputs.divisor.tolist(), "data": [list(row) for row in inputs.data],
+        "threshold": inputs.threshold, "calculator": inputs.calculator.tolist(),
+        "learning_rate": inputs.learning_rate, "momentum": inputs.momentum, "l2": inputs.l2,
+        "initial": _layers_to_list(inputs.initial),
+    }
+
+
+def inputs_from_dict(data: dict[str, Any], spec: BookSpec) -> BookInputs:
+    def layers(items) -> tuple[Layer, ...]:
+        return tuple(Layer(np.array(item["weights"], dtype=float), np.array(item["bias"], dtype=float), act)
+                     for item, act in zip(items, spec.activations, strict=True))
+
+    try:
+        return BookInputs(
+            layers=layers(data["layers"]), offset=np.array(data["offset"], dtype=float),
+            divisor=np.array(data["divisor"], dtype=float), data=tuple(tuple(row) for row in data["data"]),
+            threshold=float(data["threshold"]), calculator=np.array(data["calculator"], dtype=float),
+            learning_rate=float(data["learning_rate"]), momentum=float(data["momentum"]), l2=float(data["l2"]),
+            initial=layers(data["initial"]) if data["initial"] else ())
+    except (KeyError, TypeError, ValueError) as exc:
+        raise WorkbookFormatError(f"the workbook's record of its original inputs is damaged ({exc!r})") from None
+
+
+def describe(layout: BookLayout, inputs: BookInputs, sheets: list[str], fingerprints: Fingerprints) -> str:
     """The JSON text stored on the hidden layout sheet."""
     from sheetnet import __version__
 
@@ -79,7 +113,7 @@ def describe(layout: BookLayout, sheets: list[str], fingerprints: Fingerprints) 
     return json.dumps({
         "format": FORMAT, "version": VERSION, "tool": f"sheetnet {__version__}",
         "spec": spec_to_dict(layout.spec), "sheets": sheets, "names": names,
-        "fingerprints": fingerprints.to_dict(),
+        "fingerprints": fingerprints.to_dict(), "inputs": inputs_to_dict(inputs),
     }, separators=(",", ":"), sort_keys=True)
 
 

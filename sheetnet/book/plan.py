@@ -457,6 +457,7 @@ def _record_row(layout: BookLayout, numbers: Numbers, s: int, first: int, count:
         entries += _contribution_entries(spec, table, i, p, step, refs)
     if p == count - 1:
         entries += _step_entries(layout, s, first, count, step, weight)
+    entries.sort(key=lambda e: e.col)  # column order: the fingerprints hash cells in (row, column) order
     yield from entries
 
 

@@ -59,6 +59,9 @@ class SheetCells:
     formulas: dict[tuple[int, int], str] = field(default_factory=dict)
     values: dict[tuple[int, int], object] = field(default_factory=dict)
     shared: dict[tuple[int, int], str] = field(default_factory=dict)  # cells whose formula came from a shared one
+    merged: list[str] = field(default_factory=list)  # merged ranges, e.g. "B3:D4"
+    hidden_rows: set[int] = field(default_factory=set)  # 0-based
+    hidden_cols: set[int] = field(default_factory=set)  # 0-based
 
 
 @dataclass
@@ -68,6 +71,7 @@ class Workbook:
     names: dict[str, str]  # workbook-scoped defined names -> refers-to text (without '=')
     local_names: list[tuple[str, str, str]]  # (sheet, name, refers-to) for sheet-scoped names
     parts: list[str]
+    external_targets: list[str] = field(default_factory=list)  # relationships that point outside the file
 
     def sheet(self, name: str) -> SheetCells:
         try:
@@ -279,7 +283,9 @@ def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None) -> Workbook
         if target not in names:
             sheets[name] = SheetCells(name=name, state=node.get("state", "visible"))
             continue
-        sheets[name] = read_sheet_xml(name, node.get("state", "visible"), _text(zf, target), strings)
+        data = _text(zf, target)
+        sheets[name] = read_sheet_xml(name, node.get("state", "visible"), data, strings)
+        _sheet_structure(sheets[name], data)
     global_names, local = {}, []
     for node in book.iter(f"{{{NS_MAIN}}}definedName"):
         if node.get("localSheetId") is not None:
@@ -287,7 +293,26 @@ def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None) -> Workbook
             local.append((order[index] if index < len(order) else "?", node.get("name"), node.text or ""))
         else:
             global_names[node.get("name")] = node.text or ""
-    return Workbook(path=path, sheets=sheets, names=global_names, local_names=local, parts=names)
+    external = [t.split(":", 1)[1] for t in targets.values() if t.startswith("external:")]
+    return Workbook(path=path, sheets=sheets, names=global_names, local_names=local, parts=names,
+                    external_targets=external)
+
+
+_MERGE = re.compile(r'<(?:\w+:)?mergeCell\b[^>]*?\bref="([^"]+)"')
+_ROW_TAG = re.compile(r"<(?:\w+:)?row\b([^>]*)>")
+_COL_TAG = re.compile(r"<(?:\w+:)?col\b([^>]*?)/?>")
+
+
+def _sheet_structure(sheet: SheetCells, data: str) -> None:
+    """Merged ranges, hidden rows and hidden columns (what an audit must see)."""
+    sheet.merged = _MERGE.findall(data)
+    for attrs in _ROW_TAG.findall(data):
+        if 'hidden="1"' in attrs or 'hidden="true"' in attrs:
+            sheet.hidden_rows.add(int(_attribute(attrs, "r")) - 1)
+    head = data[: data.find("<sheetData")] if "<sheetData" in data else data
+    for attrs in _COL_TAG.findall(head):
+        if 'hidden="1"' in attrs or 'hidden="true"' in attrs:
+            sheet.hidden_cols.update(range(int(_attribute(attrs, "min")) - 1, int(_attribute(attrs, "max"))))
 
 
 _TRANSLATE = re.compile(

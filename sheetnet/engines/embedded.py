@@ -382,7 +382,10 @@ class Engine:
             try:
                 function = self.compile_template(sheet, formula)
             except (Unsupported, SyntaxError, RecursionError):
-                return _GeneralPath(self, sheet, formula), ()
+                try:
+                    return _GeneralPath(self, sheet, formula), ()
+                except (Unsupported, EvaluationError) as exc:
+                    return _ErrorCell("#REF!" if "does not exist" in str(exc) else "#NAME?"), ()
             self.templates[key] = function
         return function, tuple(map(int, runs))
 
@@ -498,6 +501,16 @@ def _result(value):
     if type(value) is xf.Arr:
         return _single(value)
     return value
+
+
+class _ErrorCell:
+    """A formula no engine can evaluate here (e.g. a reference to a sheet that no longer exists)."""
+
+    def __init__(self, code: str) -> None:
+        self.code = code
+
+    def __call__(self, _row: int, _runs: tuple = ()):
+        raise xf.XlErr(self.code)
 
 
 class _GeneralPath:

@@ -1,0 +1,522 @@
+"""Audit: exactly what changed in a workbook that came back edited, and what it did to the results.
+
+The reference is the layout description and the original inputs that ``build`` stored in the file,
+or, with ``against``, the original file. Every difference becomes a :class:`Finding` of one kind:
+structural, risks, input_edits, formula_edits, value_mismatches. Regions whose rows moved
+(inserted or deleted rows) are reported as structural and left out of the cell-by-cell comparison,
+so a shifted layout never crashes the audit or floods it.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from sheetnet.book import layout as L
+from sheetnet.book.addresses import Block, a1, column_letters, defined_name_target
+from sheetnet.book.describe import inputs_from_dict
+from sheetnet.book.layout import BookLayout, Table
+from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.spec import BookInputs
+from sheetnet.book.xlsxread import CellError, SheetCells, Workbook, read_workbook
+from sheetnet.checks.verify import Background, compare, engine_values, expected_entries, normalize_formula
+from sheetnet.errors import WorkbookFormatError
+from sheetnet.gcpause import paused_gc
+
+KINDS = ("structural", "formula_edits", "value_mismatches", "input_edits", "risks")
+VOLATILE = ("NOW", "TODAY", "RAND", "RANDBETWEEN", "OFFSET", "INDIRECT", "INFO", "CELL", "RANDARRAY")
+_VOLATILE = re.compile(r'"(?:[^"]|"")*"|\b(' + "|".join(VOLATILE) + r")\s*\(", re.I)
+#: Relative change below which a number counts as unchanged (a round trip through an application
+#: that stores 15 significant digits must not read as an edit).
+SAME_NUMBER = 1e-13
+VALUE_LIMIT = 200
+
+
+@dataclass(frozen=True)
+class Finding:
+    sheet: str
+    cell: str
+    kind: str
+    expected: object
+    found: object
+    note: str
+
+    def to_dict(self) -> dict:
+        return {"sheet": self.sheet, "cell": self.cell, "kind": self.kind, "expected": _plain(self.expected),
+                "found": _plain(self.found), "note": self.note}
+
+
+def _plain(value):
+    if isinstance(value, CellError):
+        return value.code
+    if isinstance(value, np.floating | np.integer):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return str(value)
+    return value
+
+
+@dataclass
+class AuditReport:
+    path: Path
+    reference: str
+    findings: list[Finding] = field(default_factory=list)
+    counts: dict[str, int] = field(default_factory=dict)
+    first_diverging_step: int | None = None
+    sheet_map: dict[str, str] = field(default_factory=dict)
+    reference_sheets: dict[str, set] = field(default_factory=dict, repr=False)
+    notes: list[str] = field(default_factory=list)
+
+    def add(self, finding: Finding) -> None:
+        self.counts[finding.kind] = self.counts.get(finding.kind, 0) + 1
+        if finding.kind != "value_mismatches" or self.counts[finding.kind] <= VALUE_LIMIT:
+            self.findings.append(finding)
+
+    def of(self, kind: str) -> list[Finding]:
+        return [f for f in self.findings if f.kind == kind]
+
+    @property
+    def total(self) -> int:
+        return sum(self.counts.values())
+
+    def to_dict(self) -> dict:
+        out = {"file": str(self.path), "reference": self.reference, "finding_count": self.total, "notes": self.notes,
+               "counts": {k: self.counts.get(k, 0) for k in KINDS}, "first_diverging_step": self.first_diverging_step}
+        out.update({kind: [f.to_dict() for f in self.of(kind)] for kind in KINDS})
+        return out
+
+
+# ---------------------------------------------------------------- sheets, names, structure
+
+
+def _sheet_signature(cells: SheetCells) -> set:
+    """Text constants of a sheet (headers and labels): enough to recognise it under another name."""
+    return {v for v in cells.values.values() if isinstance(v, str)}
+
+
+def map_sheets(report: AuditReport, book: Workbook, expected: list[str]) -> dict[str, str]:
+    """Expected sheet name -> name in the file; renamed, missing and added sheets are reported."""
+    mapping = {name: name for name in expected if name in book.sheets}
+    extra = [name for name in book.sheets if name not in expected]
+    for name in expected:
+        if name in mapping:
+            continue
+        match = _best_match(book, extra, report.reference_sheets.get(name))
+        if match is not None:
+            mapping[name] = match
+            extra.remove(match)
+            report.add(Finding(match, "A1", "structural", name, match, f"sheet {name!r} was renamed to {match!r}"))
+        else:
+            report.add(Finding(name, "", "structural", name, None, f"sheet {name!r} is missing"))
+    for name in extra:
+        report.add(Finding(name, "", "structural", None, name, f"sheet {name!r} was added"))
+    for name, where in mapping.items():
+        if name != L.LAYOUT and book.sheets[where].state != "visible":
+            report.add(Finding(where, "", "structural", "visible", book.sheets[where].state,
+                               f"sheet {where!r} was made {book.sheets[where].state}"))
+    return mapping
+
+
+def _best_match(book: Workbook, candidates: list[str], reference: set | None) -> str | None:
+    if not reference:
+        return None
+    best, score = None, 0.0
+    for name in candidates:
+        signature = _sheet_signature(book.sheets[name])
+        overlap = len(signature & reference) / max(1, len(reference))
+        if overlap > score:
+            best, score = name, overlap
+    return best if score >= 0.6 else None
+
+
+def check_names(report: AuditReport, book: Workbook, layout: BookLayout, mapping: dict[str, str]) -> None:
+    expected = {name: defined_name_target(_moved(block, mapping))[1:] for name, block in
+                layout.defined_names().items()}
+    found = {name: target for name, target in book.names.items() if not name.startswith("_xlnm")}
+    for name, target in expected.items():
+        if name not in found:
+            report.add(Finding("", name, "structural", target, None, f"defined name {name} is missing"))
+        elif _name_target(found[name]) != _name_target(target):
+            report.add(Finding("", name, "structural", target, found[name],
+                               f"defined name {name} now refers elsewhere"))
+    for name, target in found.items():
+        if name not in expected:
+            report.add(Finding("", name, "structural", None, target, f"defined name {name} was added"))
+    for sheet, name, target in book.local_names:
+        if not name.startswith("_xlnm"):
+            report.add(Finding(sheet, name, "structural", None, target, f"sheet-scoped name {name} was added"))
+
+
+def _name_target(text: str) -> str:
+    return text.replace("$", "").replace("'", "").lstrip("=").upper()
+
+
+def _moved(block: Block, mapping: dict[str, str]) -> Block:
+    return Block(mapping.get(block.sheet, block.sheet), block.top, block.left, block.nrows, block.ncols)
+
+
+def _tables(layout: BookLayout) -> list[tuple[Table, tuple]]:
+    """Tables and the label column that numbers their rows."""
+    out = [(layout.scoring, ("case",))] if layout.spec.n_cases else []
+    if layout.record is not None:
+        out += [(layout.record, ("step",)), (layout.epochs, ("epoch",))]
+    return out
+
+
+def find_shifts(report: AuditReport, book: Workbook, layout: BookLayout, mapping: dict[str, str]) -> dict[str, int]:
+    """Inserted or deleted rows and columns in the tables: {expected sheet name: first 0-based row that moved}."""
+    shifted: dict[str, int] = {}
+    for table, key in _tables(layout):
+        sheet = mapping.get(table.sheet)
+        if sheet is None:
+            continue
+        cells = book.sheets[sheet].values
+        moved = _header_shift(report, sheet, table, cells)
+        if moved is not None:
+            shifted[table.sheet] = moved
+            continue
+        moved = _row_shift(report, sheet, table, key, cells, layout)
+        if moved is not None:
+            shifted[table.sheet] = moved
+    return shifted
+
+
+def _header_shift(report: AuditReport, sheet: str, table: Table, cells: dict) -> int | None:
+    headers = [(table.col(c.key), c.header) for c in table.columns]
+    row = table.header_row
+    if sum(cells.get((row, col)) == text for col, text in headers) >= 0.8 * len(headers):
+        return None
+    for dr, dc in ((dr, dc) for dr in range(-20, 21) for dc in range(-5, 6) if dr or dc):
+        if sum(cells.get((row + dr, col + dc)) == text for col, text in headers) >= 0.8 * len(headers):
+            what = []
+            if dr:
+                what.append(f"{abs(dr)} row(s) {'inserted' if dr > 0 else 'deleted'} above row {row + 1}")
+            if dc:
+                what.append(f"{abs(dc)} column(s) {'inserted' if dc > 0 else 'deleted'} before column "
+                            f"{column_letters(table.left)}")
+            report.add(Finding(sheet, a1(row, table.left), "structural", a1(row, table.left),
+                               a1(row + dr, table.left + dc), f"the {sheet} table moved: " + "; ".join(what)))
+            return min(row, row + dr)
+    report.add(Finding(sheet, a1(row, table.left), "structural", "table headers", None,
+                       f"the {sheet} table's headers are not where sheetnet wrote them, nor nearby"))
+    return row
+
+
+def _expected_labels(table: Table, key: tuple, layout: BookLayout) -> list:
+    spec = layout.spec
+    if table.sheet == L.SCORING:
+        return [float(n + 1) for n in range(spec.n_cases)]
+    if table.sheet == L.EPOCHS:
+        return [float(e + 1) for e in range(spec.record.n_epochs)]
+    return [float(s + 1) for s, (_, count) in enumerate(layout.step_rows) for _ in range(count)]
+
+
+def _row_shift(report: AuditReport, sheet: str, table: Table, key: tuple, cells: dict,
+               layout: BookLayout) -> int | None:
+    col = table.col(key)
+    labels = _expected_labels(table, key, layout)
+    for i, label in enumerate(labels):
+        row = table.first_row + i
+        found = cells.get((row, col))
+        if _same(found, label):
+            continue
+        below = cells.get((row + 1, col))
+        if _same(below, label):
+            note = f"a row was inserted at row {row + 1}"
+        elif i + 1 < len(labels) and _same(found, labels[i + 1]):
+            note = f"row {row + 1} was deleted (the rows below moved up)"
+        else:
+            note = f"row {row + 1} does not hold what sheetnet wrote there (label {label:g} expected)"
+        report.add(Finding(sheet, a1(row, col), "structural", label, _plain(found), note))
+        return row
+    extra = cells.get((table.first_row + len(labels), col))
+    if extra is not None and isinstance(extra, float):
+        report.add(Finding(sheet, a1(table.first_row + len(labels), col), "structural", None, extra,
+                           "a row was added below the table"))
+    return None
+
+
+def check_merges(report: AuditReport, book: Workbook, layout: BookLayout, mapping: dict[str, str]) -> None:
+    blocks = [t.block for t, _ in _tables(layout)] + list(layout.parameters.weights) + list(layout.parameters.bias)
+    for block in blocks:
+        sheet = mapping.get(block.sheet)
+        if sheet is None:
+            continue
+        for merged in book.sheets[sheet].merged:
+            first, _, last = merged.partition(":")
+            from sheetnet.book.addresses import parse_a1
+
+            (r0, c0), (r1, c1) = parse_a1(first), parse_a1(last or first)
+            if r0 <= block.bottom and r1 >= block.top and c0 <= block.right and c1 >= block.left:
+                report.add(Finding(sheet, first, "structural", None, merged, f"merged cells {merged} cover a block"))
+
+
+# ---------------------------------------------------------------- risks
+
+
+def check_risks(report: AuditReport, book: Workbook) -> None:
+    parts = book.parts
+    for part in parts:
+        low = part.lower()
+        if "vbaproject" in low or (low.endswith(".bin") and "vba" in low):
+            report.add(Finding("", part, "risks", None, part, "the file carries macros (a VBA project); they are "
+                                                                "never run by sheetnet"))
+        elif "externallink" in low:
+            report.add(Finding("", part, "risks", None, part, "external link to another workbook (not followed)"))
+        elif low.endswith("connections.xml") or "querytable" in low:
+            report.add(Finding("", part, "risks", None, part, "data connection (not followed)"))
+    for target in book.external_targets:
+        report.add(Finding("", target, "risks", None, target, "a relationship points outside the file (not followed)"))
+    for name, cells in book.sheets.items():
+        _sheet_risks(report, name, cells)
+
+
+def _sheet_risks(report: AuditReport, name: str, cells: SheetCells) -> None:
+    if cells.state != "visible" and name != L.LAYOUT and (cells.values or cells.formulas):
+        report.add(Finding(name, "", "risks", "visible", cells.state, f"sheet {name!r} is {cells.state} and holds "
+                                                                       "content"))
+    for pos, formula in cells.formulas.items():
+        if any(m.group(1) for m in _VOLATILE.finditer(formula)):
+            report.add(Finding(name, a1(*pos), "risks", None, "=" + formula, "volatile function"))
+        if "[" in formula and re.search(r"\[[^\]]+\]", formula.split('"')[0]):
+            report.add(Finding(name, a1(*pos), "risks", None, "=" + formula, "reference to another workbook"))
+    for pos, value in cells.values.items():
+        if isinstance(value, CellError):
+            report.add(Finding(name, a1(*pos), "risks", None, value.code, "the cell shows a spreadsheet error"))
+        if value is not None and (pos[0] in cells.hidden_rows or pos[1] in cells.hidden_cols):
+            report.add(Finding(name, a1(*pos), "risks", None, _plain(value), "content in a hidden row or column"))
+
+
+# ---------------------------------------------------------------- inputs and formulas
+
+
+def _same(a, b) -> bool:
+    numbers = (float, int)
+    if type(a) in numbers and type(b) in numbers:
+        return a == b or abs(a - b) <= SAME_NUMBER * max(abs(a), abs(b))
+    if a in (None, "") and b in (None, ""):
+        return True
+    return type(a) is type(b) and a == b
+
+
+def input_cells(layout: BookLayout, inputs: BookInputs) -> list[tuple[str, tuple[int, int], object, str]]:
+    """(sheet, position, value, description) of every editable input."""
+    spec = layout.spec
+    out = []
+
+    def block(b: Block, values, what) -> None:
+        for i in range(b.nrows):
+            for j in range(b.ncols):
+                out.append((b.sheet, (b.top + i, b.left + j), float(values[i][j]), what(i, j)))
+
+    block(layout.offset, [inputs.offset], lambda i, j: f"scaling offset of {spec.inputs[j]}")
+    block(layout.divisor, [inputs.divisor], lambda i, j: f"scaling divisor of {spec.inputs[j]}")
+    _layer_inputs(block, layout.parameters, inputs.layers, spec, "")
+    if layout.initial is not None and inputs.initial:
+        _layer_inputs(block, layout.initial, inputs.initial, spec, "initial ")
+    block(layout.calculator.raw, [inputs.calculator], lambda i, j: f"calculator input {spec.inputs[j]}")
+    for cell, value, what in ((layout.threshold, inputs.threshold, "decision threshold"),
+                              (layout.learning_rate, inputs.learning_rate, "learning rate"),
+                              (layout.momentum, inputs.momentum, "momentum"), (layout.l2, inputs.l2, "L2 penalty")):
+        if cell is not None:
+            out.append((cell.sheet, (cell.row, cell.col), float(value), what))
+    names = (*spec.inputs, *spec.target)
+    for n, row in enumerate(inputs.data):
+        for c, value in enumerate(row):
+            key = ("raw", c) if c < len(spec.inputs) else ("target", c - len(spec.inputs))
+            cell = layout.scoring.cell(n, key)
+            out.append((cell.sheet, (cell.row, cell.col), value, f"data, case {n + 1}, column {names[c]!r}"))
+    return out
+
+
+def _layer_inputs(block, blocks, layers, spec, prefix: str) -> None:
+    for k, layer in enumerate(layers):
+        units, sources = spec.unit_names(k), spec.source_names(k)
+        block(blocks.weights[k], layer.weights, lambda i, j, k=k, u=units, s=sources:
+              f"{prefix}weight W_{k + 1}({u[i]},{s[j]})")
+        block(blocks.bias[k], layer.bias[:, None], lambda i, j, k=k, u=units: f"{prefix}bias b_{k + 1}({u[i]})")
+
+
+def _in_shift(sheet: str, row: int, shifted: dict[str, int]) -> bool:
+    return sheet in shifted and row >= shifted[sheet]
+
+
+def check_inputs(report: AuditReport, book: Workbook, layout: BookLayout, original: BookInputs,
+                 mapping: dict[str, str], shifted: dict[str, int]) -> None:
+    for sheet, pos, old, what in input_cells(layout, original):
+        where = mapping.get(sheet)
+        if where is None or _in_shift(sheet, pos[0], shifted):
+            continue
+        cells = book.sheets[where]
+        if pos in cells.formulas:
+            report.add(Finding(where, a1(*pos), "formula_edits", old, "=" + cells.formulas[pos],
+                               f"a formula typed over an input ({what})"))
+            continue
+        new = cells.values.get(pos)
+        if not _same(new, old):
+            report.add(Finding(where, a1(*pos), "input_edits", old, _plain(new), f"{what} changed"))
+
+
+def check_formulas(report: AuditReport, book: Workbook, layout: BookLayout, numbers, mapping: dict[str, str],
+                   shifted: dict[str, int], reference_formulas: dict | None) -> set:
+    """Expected formula cells against the file; returns the expected (sheet, position) set."""
+    expected_cells = set()
+    for sheet, entry in expected_entries(layout, numbers):
+        pos = (entry.row, entry.col)
+        where = mapping.get(sheet)
+        if entry.role != "formula" or where is None or _in_shift(sheet, entry.row, shifted):
+            expected_cells.add((sheet, pos))
+            continue
+        expected_cells.add((sheet, pos))
+        expected = entry.content
+        if reference_formulas is not None:
+            expected = reference_formulas.get((sheet, pos), expected)
+        cells = book.sheets[where]
+        found = cells.formulas.get(pos)
+        if found is None:
+            value = cells.values.get(pos)
+            note = "a constant pasted over a formula" if value is not None else "a formula was deleted"
+            report.add(Finding(where, a1(*pos), "formula_edits", expected, _plain(value), note))
+        elif found != expected[1:] and normalize_formula(found) != normalize_formula(expected):
+            note = "#REF! in a formula (a referenced cell was deleted)" if "#REF!" in found.upper() else \
+                "the formula is not what sheetnet writes here"
+            kind = "structural" if "#REF!" in found.upper() else "formula_edits"
+            report.add(Finding(where, a1(*pos), kind, expected, "=" + found, note))
+    for sheet, where in mapping.items():
+        if sheet == L.LAYOUT:
+            continue
+        for pos, formula in book.sheets[where].formulas.items():
+            if (sheet, pos) not in expected_cells and not _in_shift(sheet, pos[0], shifted):
+                report.add(Finding(where, a1(*pos), "formula_edits", None, "=" + formula,
+                                   "a formula where sheetnet wrote none"))
+    return expected_cells
+
+
+# ---------------------------------------------------------------- values
+
+
+def check_values(report: AuditReport, book: Workbook, layout: BookLayout, mapping: dict[str, str],
+                 shifted: dict[str, int], values: dict) -> None:
+    """Recalculated values against the reference trainer on the edited inputs."""
+    from sheetnet.book.numbers import compute
+
+    numbers = compute(layout.spec, read_inputs(_renamed_view(book, mapping), layout))
+    expected = [(sheet, e.row, e.col, e.content, e.value) for sheet, e in expected_entries(layout, numbers)
+                if e.role == "formula" and sheet in mapping and not _in_shift(sheet, e.row, shifted)]
+    view = _renamed_view(book, mapping)
+    renamed_values = {sheet: values.get(where, {}) for sheet, where in mapping.items()}
+    comparison = compare(view, expected, renamed_values, "embedded", 1e-9)
+    record_rows = {}
+    if layout.record is not None:
+        for s, (first, count) in enumerate(layout.step_rows):
+            for i in range(count):
+                record_rows[layout.record.first_row + first + i] = s + 1
+    for item in comparison.mismatches:
+        report.add(Finding(mapping[item["sheet"]], item["cell"], "value_mismatches", item["expected"], item["found"],
+                           "recalculated value differs from the reference trainer on the file's inputs"))
+    for _ in range(comparison.mismatch_count - len(comparison.mismatches)):
+        report.counts["value_mismatches"] = report.counts.get("value_mismatches", 0) + 1
+    steps = [record_rows[_row_of(m["cell"])] for m in comparison.mismatches
+             if m["sheet"] == L.RECORD and _row_of(m["cell"]) in record_rows]
+    report.first_diverging_step = min(steps) if steps else None
+    for item in comparison.stale_cached:
+        report.add(Finding(mapping[item["sheet"]], item["cell"], "risks", item["recalculated"], item["cached"],
+                           "stale cached value: viewers that do not recalculate show the wrong number"))
+    for item in comparison.errors:
+        report.add(Finding(mapping[item["sheet"]], item["cell"], "risks", None, item["error"],
+                           "the recalculated cell is a spreadsheet error"))
+
+
+def _row_of(cell: str) -> int:
+    from sheetnet.book.addresses import parse_a1
+
+    return parse_a1(cell)[0]
+
+
+def _renamed_view(book: Workbook, mapping: dict[str, str]) -> Workbook:
+    """The workbook with its sheets under the names the layout expects."""
+    sheets = {expected: book.sheets[found] for expected, found in mapping.items()}
+    return Workbook(path=book.path, sheets=sheets, names=book.names, local_names=book.local_names, parts=book.parts,
+                    external_targets=book.external_targets)
+
+
+# ---------------------------------------------------------------- the audit
+
+
+def _reference(book: Workbook, against: Path | None):
+    """Layout, original inputs, reference formulas and sheet signatures."""
+    if against is None:
+        layout, data = read_layout(book)
+        original = inputs_from_dict(data.get("inputs") or {}, layout.spec) if data.get("inputs") else \
+            read_inputs(book, layout)
+        return layout, original, None, data.get("sheets", []), None
+    reference = read_workbook(against)
+    layout, data = read_layout(reference)
+    formulas = {(sheet, pos): "=" + text for sheet, cells in reference.sheets.items()
+                for pos, text in cells.formulas.items()}
+    signatures = {name: _sheet_signature(cells) for name, cells in reference.sheets.items()}
+    return layout, read_inputs(reference, layout), formulas, list(reference.sheets), signatures
+
+
+def audit(path: str | Path, against: str | Path | None = None) -> AuditReport:
+    """Every difference between an edited workbook and its reference, classified."""
+    with paused_gc():
+        return _audit(Path(path), None if against is None else Path(against))
+
+
+def _audit(path: Path, against: Path | None) -> AuditReport:
+    from sheetnet.book.numbers import compute
+
+    book = read_workbook(path)
+    try:
+        layout, original, formulas, sheets, signatures = _reference(book, against)
+    except WorkbookFormatError as exc:
+        raise WorkbookFormatError(f"{exc} (without its layout description the file cannot be audited; "
+                                  "give the original with --against)") from None
+    report = AuditReport(path=path, reference=str(against) if against else "layout description stored in the file")
+    numbers = compute(layout.spec, original)
+    report.reference_sheets = signatures or _signatures(layout, numbers)
+    engine = Background(engine_values, book, "embedded")
+    try:
+        mapping = map_sheets(report, book, sheets or list(book.sheets))
+        report.sheet_map = mapping
+        check_names(report, book, layout, mapping)
+        shifted = find_shifts(report, book, layout, mapping)
+        check_merges(report, book, layout, mapping)
+        check_risks(report, book)
+        check_inputs(report, book, layout, original, mapping, shifted)
+        check_formulas(report, book, layout, numbers, mapping, shifted, formulas)
+        _values_if_possible(report, book, layout, mapping, shifted, engine)
+    finally:
+        engine.stop()
+    return report
+
+
+def _values_if_possible(report: AuditReport, book: Workbook, layout: BookLayout, mapping: dict[str, str],
+                        shifted: dict[str, int], engine: Background) -> None:
+    needed = [L.PARAMETERS, L.CALCULATOR] + ([L.SCORING] if layout.spec.n_cases else [])
+    needed += [L.SETUP, L.RECORD] if layout.record is not None else []
+    missing = [sheet for sheet in needed if sheet not in mapping]
+    if missing or shifted:
+        why = f"sheet(s) missing: {', '.join(missing)}" if missing else f"rows moved on {', '.join(shifted)}"
+        report.notes.append(f"recalculated values were not compared with the reference: {why}")
+        return
+    ordered, _ = engine.result()
+    values = {sheet: dict(zip(book.sheets[sheet].formulas, items, strict=True)) for sheet, items in ordered.items()}
+    try:
+        check_values(report, book, layout, mapping, shifted, values)
+    except WorkbookFormatError as exc:
+        report.notes.append(f"recalculated values were not compared with the reference: {exc}")
+
+
+def _signatures(layout: BookLayout, numbers) -> dict[str, set]:
+    """The texts sheetnet writes on each sheet (headers, labels): to recognise a renamed sheet."""
+    out: dict[str, set] = {}
+    for sheet, entry in expected_entries(layout, numbers):
+        if entry.role != "formula" and isinstance(entry.content, str):
+            out.setdefault(sheet, set()).add(entry.content)
+    return out
