@@ -111,7 +111,7 @@ def test_formula_edit_and_pasted_constant_are_formula_edits(book, tmp_path, run_
         ws[z_cell[1]].value = ws[z_cell[1]].value.replace("+", "-", 1)
         wb[a_cell[0]][a_cell[1]].value = 0.5
 
-    code, report, out = _audit(run_cli, _edit(book, tmp_path / "formulas.xlsx", change))
+    code, report, _out = _audit(run_cli, _edit(book, tmp_path / "formulas.xlsx", change))
     assert code == 3
     assert _cells(report, "formula_edits") == {z_cell, a_cell}
     assert report["value_mismatches"] and report["first_diverging_step"] is not None
@@ -137,7 +137,7 @@ def test_renamed_and_hidden_sheets_are_structural(book, tmp_path, run_cli):
         wb["Epochs"].title = "Loss by epoch"
         wb["Guide"].sheet_state = "hidden"
 
-    code, report, out = _audit(run_cli, _edit(book, tmp_path / "sheets.xlsx", change))
+    code, report, _out = _audit(run_cli, _edit(book, tmp_path / "sheets.xlsx", change))
     assert code == 3
     notes = " | ".join(f["note"] for f in report["structural"])
     assert "'Epochs' was renamed to 'Loss by epoch'" in notes and "'Guide' was made hidden" in notes
@@ -195,7 +195,7 @@ def test_extract_gives_the_edited_weights(book, tmp_path, run_cli):
     model = load_model(tmp_path / "m.json")
     assert model.layers[0].weights[2, 1] == -1.5
     original = openpyxl.load_workbook(book, data_only=True)
-    sheet, corner, rows, cols = defined_block(book, "W_2")
+    _sheet, _corner, rows, cols = defined_block(book, "W_2")
     assert model.layers[1].weights.shape == (rows, cols)
     assert original[weight[0]][weight[1]].value != -1.5
 
