@@ -80,6 +80,32 @@ class Workbook:
             raise WorkbookFormatError(f"{self.path}: sheet {name!r} not found") from None
 
 
+_OLE = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"
+
+
+def _check_signature(path: Path) -> None:
+    try:
+        with path.open("rb") as handle:
+            head = handle.read(8)
+    except FileNotFoundError:
+        raise WorkbookFormatError(f"{path}: file not found") from None
+    except IsADirectoryError:
+        raise WorkbookFormatError(f"{path}: is a folder, not a workbook") from None
+    except OSError as exc:
+        raise WorkbookFormatError(f"{path}: cannot read ({exc.strerror})") from None
+    if head.startswith(_OLE):
+        raise WorkbookFormatError(f"{path}: an encrypted (password-protected) or legacy .xls workbook; "
+                                  "save it as an unprotected .xlsx first")
+    if not head.startswith(b"PK"):
+        raise WorkbookFormatError(f"{path}: not an .xlsx workbook (not a zip package)")
+    if path.suffix.lower() == ".xlsb":
+        raise WorkbookFormatError(f"{path}: binary .xlsb workbooks are not supported; save it as .xlsx")
+
+
+def macro_parts(names: list[str]) -> list[str]:
+    return [n for n in names if "vbaproject" in n.lower() or (n.lower().endswith((".bin",)) and "vba" in n.lower())]
+
+
 def _check_package(zf: zipfile.ZipFile, path: Path) -> None:
     total = 0
     for info in zf.infolist():
@@ -230,17 +256,28 @@ def _attribute(attrs: str, name: str) -> str:
     return attrs[at:attrs.index('"', at)]
 
 
-def read_workbook(path: str | Path, sheets: list[str] | None = None) -> Workbook:
-    """Read cells of every sheet (or only ``sheets``), defined names and the part list."""
+def read_workbook(path: str | Path, sheets: list[str] | None = None, allow_macros: bool = False) -> Workbook:
+    """Read cells of every sheet (or only ``sheets``), defined names and the part list.
+
+    Refused with a clear message: non-zip, encrypted or legacy binary (.xls/.xlsb) files, zip bombs,
+    XML with a document type declaration, and (unless ``allow_macros``: the audit, which reports
+    them) workbooks that carry macros. Macros are never run and external links never followed.
+    """
     path = Path(path)
+    _check_signature(path)
     try:
         zf = zipfile.ZipFile(path)
     except FileNotFoundError:
         raise WorkbookFormatError(f"{path}: file not found") from None
+    except IsADirectoryError:
+        raise WorkbookFormatError(f"{path}: is a folder, not a workbook") from None
     except (zipfile.BadZipFile, OSError) as exc:
         raise WorkbookFormatError(f"{path}: not an .xlsx workbook ({exc})") from None
     with zf:
         _check_package(zf, path)
+        if allow_macros is False and macro_parts(zf.namelist()):
+            raise WorkbookFormatError(f"{path}: a macro-enabled workbook (VBA project inside); refused: sheetnet "
+                                      "never runs macros (use 'sheetnet audit' to see what the file holds)")
         try:
             return _read(zf, path, sheets)
         except WorkbookFormatError as exc:

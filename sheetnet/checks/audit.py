@@ -471,7 +471,7 @@ def audit(path: str | Path, against: str | Path | None = None) -> AuditReport:
 def _audit(path: Path, against: Path | None) -> AuditReport:
     from sheetnet.book.numbers import compute
 
-    book = read_workbook(path)
+    book = read_workbook(path, allow_macros=True)
     try:
         layout, original, formulas, sheets, signatures = _reference(book, against)
     except WorkbookFormatError as exc:

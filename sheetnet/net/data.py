@@ -292,13 +292,16 @@ def fit_scaling(method: str, x: np.ndarray) -> Scaling | None:
     """
     if method == "none":
         return None
-    if method == "standard":
-        offset, scale = x.mean(axis=0), x.std(axis=0)
-    elif method == "minmax":
-        offset, scale = x.min(axis=0), x.max(axis=0) - x.min(axis=0)
-    else:
-        raise UsageError(f"unknown scaling {method!r}; expected standard, minmax or none")
+    with np.errstate(over="ignore", invalid="ignore"):  # overflow is reported below, in words
+        if method == "standard":
+            offset, scale = x.mean(axis=0), x.std(axis=0)
+        elif method == "minmax":
+            offset, scale = x.min(axis=0), x.max(axis=0) - x.min(axis=0)
+        else:
+            raise UsageError(f"unknown scaling {method!r}; expected standard, minmax or none")
     scale = np.where(scale > 0, scale, 1.0)
+    if not (np.isfinite(offset).all() and np.isfinite(scale).all()):
+        raise DataError(f"input values too large to scale ({method}): their spread overflows; rescale the data")
     return Scaling(method=method, offset=offset, scale=scale)
 
 
