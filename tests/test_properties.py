@@ -51,7 +51,7 @@ def test_model_file_round_trips(tmp_path_factory, model):
 
 def _table(model: Model, rows: list[list[float]], labels: list) -> Table:
     header = (*model.inputs, "y")
-    body = tuple(tuple(repr(v) for v in row[: len(model.inputs)]) + (str(label),) for row, label in
+    body = tuple((*tuple(repr(v) for v in row[:len(model.inputs)]), str(label)) for row, label in
                  zip(rows, labels, strict=True))
     return Table(source="generated.csv", header=header, rows=body, lines=tuple(range(2, len(body) + 2)))
 
