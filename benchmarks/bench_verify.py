@@ -22,7 +22,7 @@ import time
 from pathlib import Path
 
 ROWS = 200
-PER_ROW = 45  # formula cells per record row of the 4-3-1 network with batch size 1
+PER_ROW = 56  # formula cells per record row of the 4-3-1 network with batch size 1, scoring included
 
 
 def build(path: Path, cells: int) -> int:
