@@ -300,7 +300,12 @@ def _model_book(args: argparse.Namespace, options: RecordOptions):
 
 def cmd_demo(args: argparse.Namespace) -> int:
     folder = args.out
-    folder.mkdir(parents=True, exist_ok=True)
+    if folder.exists() and not folder.is_dir():
+        raise UsageError(f"{folder}: --out must be a folder, and this is a file")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"{folder}: cannot create the folder ({exc.strerror})") from None
     data = folder / "invented_kiln_firings.csv"
     book = folder / "kiln_demo.xlsx"
     for path in (data, book):

@@ -21,8 +21,10 @@ from defusedxml import ElementTree as SafeET
 from sheetnet.book.addresses import column_index
 from sheetnet.errors import WorkbookFormatError
 
-#: Refuse workbooks whose parts inflate to more than this (zip bombs).
-MAX_UNCOMPRESSED_BYTES = 2 * 1024**3
+#: Refuse workbooks whose parts inflate to more than this in all, or any part beyond PART (zip bombs);
+#: a workbook of a million formula cells is about 150 MB inflated.
+MAX_UNCOMPRESSED_BYTES = 1024**3
+MAX_PART_BYTES = 512 * 1024**2
 MAX_COMPRESSION_RATIO = 200
 
 NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
@@ -110,6 +112,9 @@ def _check_package(zf: zipfile.ZipFile, path: Path) -> None:
     total = 0
     for info in zf.infolist():
         total += info.file_size
+        if info.file_size > MAX_PART_BYTES:
+            raise WorkbookFormatError(f"{path}: part {info.filename} inflates to {info.file_size:,} bytes, over the "
+                                      f"{MAX_PART_BYTES:,} limit; refused as a possible zip bomb")
         if info.compress_size and info.file_size / info.compress_size > MAX_COMPRESSION_RATIO \
                 and info.file_size > 10 * 1024**2:
             raise WorkbookFormatError(f"{path}: part {info.filename} inflates {info.file_size / info.compress_size:.0f}"
