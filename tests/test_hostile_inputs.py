@@ -62,6 +62,7 @@ def bad_workbooks(tmp: Path, book: Path) -> dict[str, tuple[Path, str]]:
         "zip bomb": (_with_part(book, tmp / "zipbomb.xlsx", "xl/media/zeros.bin", b"\0" * (40 * 1024 * 1024),
                                 replace=False), "zip bomb"),
         "macros": (_with_part(book, tmp / "macro.xlsx", "xl/vbaProject.bin", b"\0\1\2", replace=False), "macro"),
+        "xlsm": ((tmp / "book.xlsm"), "macro-enabled"),
         "plain workbook": (_zip(tmp / "plain.xlsx", {}), ""),
         "damaged layout": (_with_part(book, tmp / "layout.xlsx", "xl/worksheets/sheet8.xml",
                                       '<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main">'
@@ -74,6 +75,7 @@ def bad_workbooks(tmp: Path, book: Path) -> dict[str, tuple[Path, str]]:
     out["encrypted or legacy"][0].write_bytes(b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\0" * 512)
     out["truncated zip"][0].write_bytes(book.read_bytes()[:700])
     out["xlsb"][0].write_bytes(book.read_bytes())
+    out["xlsm"][0].write_bytes(book.read_bytes())
     out["folder"][0].mkdir()
     import openpyxl
 
@@ -85,7 +87,8 @@ def bad_workbooks(tmp: Path, book: Path) -> dict[str, tuple[Path, str]]:
 
 
 BAD_WORKBOOK_NAMES = ["not a zip", "empty file", "encrypted or legacy", "truncated zip", "zip without workbook",
-                      "xlsb", "entity expansion", "zip bomb", "macros", "plain workbook", "damaged layout", "folder"]
+                      "xlsb", "entity expansion", "zip bomb", "macros", "xlsm", "plain workbook", "damaged layout",
+                      "folder"]
 
 
 def _digest(path: Path) -> str:
@@ -115,7 +118,7 @@ def _check(capsys, args, inputs, outputs, needle, codes=(1, 2)) -> None:
 @pytest.mark.parametrize("command", ["verify", "audit", "extract"])
 def test_bad_workbooks_are_refused(case, command, assets, tmp_path, capsys):
     path, needle = bad_workbooks(tmp_path, assets["book"])[case]
-    if command == "audit" and case == "macros":
+    if command == "audit" and case in ("macros", "xlsm"):
         code, _ = _run(capsys, ["audit", path])  # the audit reads it and reports the macros as a risk
         assert code == 3
         return

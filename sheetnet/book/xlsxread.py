@@ -104,6 +104,12 @@ def _check_signature(path: Path) -> None:
         raise WorkbookFormatError(f"{path}: binary .xlsb workbooks are not supported; save it as .xlsx")
 
 
+def _check_extension(path: Path, allow_macros: bool) -> None:
+    if not allow_macros and path.suffix.lower() in (".xlsm", ".xltm", ".xlam"):
+        raise WorkbookFormatError(f"{path}: a macro-enabled workbook ({path.suffix}); refused: sheetnet never runs "
+                                  "macros (use 'sheetnet audit' to see what the file holds)")
+
+
 def macro_parts(names: list[str]) -> list[str]:
     return [n for n in names if "vbaproject" in n.lower() or (n.lower().endswith((".bin",)) and "vba" in n.lower())]
 
@@ -270,6 +276,7 @@ def read_workbook(path: str | Path, sheets: list[str] | None = None, allow_macro
     """
     path = Path(path)
     _check_signature(path)
+    _check_extension(path, allow_macros)
     try:
         zf = zipfile.ZipFile(path)
     except FileNotFoundError:

@@ -260,6 +260,9 @@ def check_merges(report: AuditReport, book: Workbook, layout: BookLayout, mappin
 
 def check_risks(report: AuditReport, book: Workbook) -> None:
     parts = book.parts
+    if book.path.suffix.lower() in (".xlsm", ".xltm", ".xlam"):
+        report.add(Finding("", book.path.name, "risks", ".xlsx", book.path.suffix,
+                           "a macro-enabled file type; sheetnet never runs macros"))
     for part in parts:
         low = part.lower()
         if "vbaproject" in low or (low.endswith(".bin") and "vba" in low):
