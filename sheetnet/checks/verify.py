@@ -9,6 +9,7 @@ errors are listed as well.
 
 from __future__ import annotations
 
+import itertools
 import math
 import multiprocessing
 import os
@@ -133,25 +134,58 @@ def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], e
     """Every expected formula cell against the file's formula text and the engine's value."""
     report = Comparison(engine=engine, tolerance=tolerance)
     expected_cells: set[tuple[str, tuple[int, int]]] = set()
-    for sheet, row, col, formula, reference in expected:
-        pos = (row, col)
-        expected_cells.add((sheet, pos))
-        cells = book.sheets.get(sheet)
-        found_formula = cells.formulas.get(pos) if cells else None
-        if found_formula is None or found_formula != formula[1:]:
-            _formula_difference(report, sheet, pos, formula, found_formula, cells)
-        if found_formula is not None:
-            value = engine_values.get(sheet, {}).get(pos)
-        else:
-            value = None if cells is None else cells.values.get(pos)
-        report.cells_compared += 1
-        report.per_sheet[sheet] = report.per_sheet.get(sheet, 0) + 1
-        _check_value(report, sheet, pos, value, reference)
-        if found_formula is not None and cells is not None:
-            _check_stale(report, sheet, pos, cells.values.get(pos), value)
+    for sheet, group in itertools.groupby(expected, key=lambda item: item[0]):
+        _compare_sheet(report, book, sheet, list(group), engine_values.get(sheet, {}), expected_cells)
     _extra_formulas(report, book, expected_cells)
     report.general_path = [_cell(s, p) for s, p, _ in (general or [])][:LIST_LIMIT]
     return report
+
+
+def _compare_sheet(report: Comparison, book: Workbook, sheet: str, items: list, values: dict, seen: set) -> None:
+    """The hot loop of a verification: one sheet's expected formula cells."""
+    cells = book.sheets.get(sheet)
+    formulas = cells.formulas if cells else {}
+    cached = cells.values if cells else {}
+    tolerance = report.tolerance
+    for _, row, col, formula, reference in items:
+        pos = (row, col)
+        seen.add((sheet, pos))
+        found = formulas.get(pos)
+        if found is None or found != formula[1:]:
+            _formula_difference(report, sheet, pos, formula, found, cells)
+        value = values.get(pos) if found is not None else cached.get(pos)
+        if type(value) is float and type(reference) is float:
+            diff = value - reference if value > reference else reference - value
+            scale = reference if reference > 0 else -reference
+            if diff > report.max_abs_diff or (scale and diff / scale > report.max_rel_diff):
+                _record_largest(report, sheet, pos, diff, scale)
+            if diff > tolerance * (scale if scale > 1.0 else 1.0):
+                _mismatch(report, sheet, pos, value, reference)
+        else:
+            _check_value(report, sheet, pos, value, reference)
+        if found is not None:
+            saved = cached.get(pos)
+            if saved is not None and not (type(saved) is float and type(value) is float
+                                          and abs(saved - value) <= tolerance * max(1.0, abs(value))):
+                _check_stale(report, sheet, pos, saved, value)
+    report.cells_compared += len(items)
+    report.per_sheet[sheet] = report.per_sheet.get(sheet, 0) + len(items)
+
+
+def _record_largest(report: Comparison, sheet: str, pos, diff: float, scale: float) -> None:
+    if diff > report.max_abs_diff:
+        report.max_abs_diff, report.max_abs_where = diff, _cell(sheet, pos)
+    if scale and diff / scale > report.max_rel_diff:
+        report.max_rel_diff, report.max_rel_where = diff / scale, _cell(sheet, pos)
+
+
+def _mismatch(report: Comparison, sheet: str, pos, value, expected) -> None:
+    report.mismatch_count += 1
+    item = {"sheet": sheet, "cell": a1(*pos), "expected": _plain(expected), "found": _plain(value)}
+    if report.first_mismatch is None:
+        report.first_mismatch = item
+    if len(report.mismatches) < LIST_LIMIT:
+        report.mismatches.append(item)
 
 
 def _formula_difference(report: Comparison, sheet: str, pos, expected: str, found: str | None, cells) -> None:
@@ -166,26 +200,11 @@ def _formula_difference(report: Comparison, sheet: str, pos, expected: str, foun
 
 
 def _check_value(report: Comparison, sheet: str, pos, value, expected) -> None:
-    if type(value) is float and type(expected) is float:
-        diff = abs(value - expected)
-        scale = abs(expected)
-        if diff > report.max_abs_diff:
-            report.max_abs_diff, report.max_abs_where = diff, _cell(sheet, pos)
-        if scale and diff / scale > report.max_rel_diff:
-            report.max_rel_diff, report.max_rel_where = diff / scale, _cell(sheet, pos)
-        if diff <= report.tolerance * (scale if scale > 1.0 else 1.0):
-            return
-    else:
-        if isinstance(value, CellError):
-            report.errors.append({"sheet": sheet, "cell": a1(*pos), "error": value.code})
-        if agree(value, expected, report.tolerance):
-            return
-    report.mismatch_count += 1
-    item = {"sheet": sheet, "cell": a1(*pos), "expected": _plain(expected), "found": _plain(value)}
-    if report.first_mismatch is None:
-        report.first_mismatch = item
-    if len(report.mismatches) < LIST_LIMIT:
-        report.mismatches.append(item)
+    """The slow path of the value check: anything but two floats."""
+    if isinstance(value, CellError):
+        report.errors.append({"sheet": sheet, "cell": a1(*pos), "error": value.code})
+    if not agree(value, expected, report.tolerance):
+        _mismatch(report, sheet, pos, value, expected)
 
 
 def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:

@@ -54,22 +54,23 @@ class Unsupported(Exception):
 
 @dataclass(eq=False)
 class Store:
-    """One sheet's constants, formula cells (key -> evaluator) and computed values."""
+    """One sheet: formula cells (key -> evaluator) and values (constants, then computed formulas)."""
 
     name: str
-    const: dict[int, object] = field(default_factory=dict)
     formulas: dict[int, object] = field(default_factory=dict)
     out: dict[int, object] = field(default_factory=dict)
 
 
 def V(store: Store, row: int, col: int):
-    """The value of one cell as a formula sees it (errors raised, uncomputed formulas NotReady)."""
+    """The value of one cell as a formula sees it (errors raised, uncomputed formulas NotReady).
+
+    ``store.out`` holds the constants from the start and each formula's value once computed."""
     key = row * WIDTH + col
     value = store.out.get(key, _MISSING)
     if value is _MISSING:
         if key in store.formulas:
             raise NotReady(store, key)
-        value = store.const.get(key)
+        return None
     if type(value) is CellError:
         raise xf.XlErr(value.code)
     return value
@@ -77,19 +78,27 @@ def V(store: Store, row: int, col: int):
 
 def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xf.Arr:
     """A block of values (errors kept as elements)."""
-    out, formulas, const = store.out, store.formulas, store.const
-    values = []
-    for row in range(r0, r1 + 1):
-        base = row * WIDTH
-        for col in range(c0, c1 + 1):
-            key = base + col
-            value = out.get(key, _MISSING)
-            if value is _MISSING:
-                if key in formulas:
-                    raise NotReady(store, key)
-                value = const.get(key)
-            values.append(value)
+    get = store.out.get
+    if r0 == r1:
+        base = r0 * WIDTH
+        values = [get(base + col, _MISSING) for col in range(c0, c1 + 1)]
+    else:
+        values = [get(row * WIDTH + col, _MISSING) for row in range(r0, r1 + 1) for col in range(c0, c1 + 1)]
+    if _MISSING in values:
+        values = _fill(store, values, r0, c0, c1)
     return xf.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
+
+
+def _fill(store: Store, values: list, r0: int, c0: int, c1: int) -> list:
+    """Empty cells read as None; a formula not computed yet is NotReady."""
+    width = c1 - c0 + 1
+    for n, value in enumerate(values):
+        if value is _MISSING:
+            key = (r0 + n // width) * WIDTH + c0 + n % width
+            if key in store.formulas:
+                raise NotReady(store, key)
+            values[n] = None
+    return values
 
 
 def _raise(code: str):
@@ -365,7 +374,7 @@ class Engine:
         function. The formula with every digit turned into 0 fixes the syntax; which digit runs are
         row numbers is found once per shape; the other runs (constants) are part of the key.
         """
-        pure = _PURE_REF.match(formula)
+        pure = None if "(" in formula else _PURE_REF.match(formula)
         if pure:
             link = self._link(sheet, row, pure)
             if link is not None:
@@ -401,31 +410,37 @@ class Engine:
 
     def run(self) -> Recalculation:
         order = []
+        general = []
         for name, cells in self.book.sheets.items():
             store = self.stores[name]
+            out, formulas = store.out, cells.formulas
             for (row, col), value in cells.values.items():
-                if (row, col) not in cells.formulas:
-                    store.const[row * WIDTH + col] = value
-            for (row, col), formula in sorted(cells.formulas.items()):
+                if (row, col) not in formulas:
+                    out[row * WIDTH + col] = value
+            for (row, col), formula in formulas.items():  # file order: row by row
                 key = row * WIDTH + col
-                store.formulas[key] = (*self.evaluator(name, row, formula), row)
-                order.append((store, key))
-        deferred = self._first_pass(order)
-        for store, key in deferred:
+                function, runs = self.evaluator(name, row, formula)
+                store.formulas[key] = (function, runs, row)
+                order.append((store, key, function, runs, row))
+                if type(function) is _GeneralPath:
+                    general.append((name, (row, col), formula))
+        for store, key in self._first_pass(order):
             if key not in store.out:
                 self._compute(store, key)
         ordered = {name: [self.stores[name].out[r * WIDTH + c] for r, c in cells.formulas]
                    for name, cells in self.book.sheets.items()}
-        return Recalculation(ordered=ordered, general=[], templates=len(self.templates), formula_cells=len(order))
+        return Recalculation(ordered=ordered, general=general, templates=len(self.templates),
+                             formula_cells=len(order))
 
     @staticmethod
-    def _first_pass(order: list[tuple[Store, int]]) -> list[tuple[Store, int]]:
+    def _first_pass(order: list[tuple]) -> list[tuple[Store, int]]:
         """Compute in sheet and row order; a cell whose inputs are not ready is put off, not chased."""
         deferred = []
-        for store, key in order:
-            function, runs, row = store.formulas[key]
+        for store, key, function, runs, row in order:
             try:
-                value = _result(function(row, runs))
+                value = function(row, runs)
+                if type(value) is not float or value - value != 0.0:
+                    value = _result(value)
             except NotReady:
                 deferred.append((store, key))
                 continue
@@ -586,9 +601,5 @@ def _expand_names(formula: str, names: dict[str, str]) -> str:
 
 def recalculate(book: Workbook) -> Recalculation:
     """Compute every formula cell of ``book``."""
-    engine = Engine(book)
-    result = engine.run()
-    result.general = [(sheet, pos, f) for sheet, cells in book.sheets.items() for pos, f in cells.formulas.items()
-                      if isinstance(engine.stores[sheet].formulas[pos[0] * WIDTH + pos[1]][0], _GeneralPath)]
-    return result
+    return Engine(book).run()
 

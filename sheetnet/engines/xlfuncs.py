@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass
+from typing import NamedTuple
 
 from sheetnet.book.xlsxread import CellError
 
@@ -23,16 +23,12 @@ class XlErr(Exception):
         self.code = code
 
 
-@dataclass(frozen=True)
-class Arr:
-    """A rectangular block of values, row-major; elements may be CellError values."""
+class Arr(NamedTuple):
+    """A rectangular block of values, row-major; elements may be CellError values (a tuple: cheap)."""
 
     rows: int
     cols: int
     values: list
-
-    def __len__(self) -> int:
-        return len(self.values)
 
 
 def raise_if_error(value):
