@@ -7,6 +7,7 @@ auditor compares the file's formulas with their formula text. Nothing here knows
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import NamedTuple
@@ -400,6 +401,10 @@ def _confusion_entries(layout: BookLayout, numbers: Numbers, col) -> Iterator[En
 # ---------------------------------------------------------------- Training record
 
 
+#: Reuse the formula text of a record row for every later row of the same shape (see ``_RowShapes``).
+SHAPED_RECORD_ROWS = True
+
+
 def record_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     """Header rows, then one row per case of every step, in row order."""
     spec, table = layout.spec, layout.record
@@ -409,9 +414,92 @@ def record_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     for column in table.columns:
         yield Entry(table.header_row, table.col(column.key), "header", column.header,
                     note=column_note(spec, column.key, "record"))
+    shapes = _RowShapes(layout)
     for s, (first, count) in enumerate(layout.step_rows):
         for p in range(count):
-            yield from _record_row(layout, numbers, s, first, count, p)
+            yield from _record_links(layout, numbers, s, first, p)
+            yield from shapes.row(numbers, s, first, count, p)
+
+
+class _RowShapes:
+    """Record rows of the same shape (position in the batch, batch size, first step or not) differ only
+    in their own row numbers: the formula text of the first such row becomes a template with the row
+    numbers as fields, and later rows fill it in (values always come from the trace)."""
+
+    _REF = re.compile(r"(?<![A-Za-z_!$'0-9])([A-Z]{1,3})([0-9]+)(?![0-9(!])")
+
+    def __init__(self, layout: BookLayout) -> None:
+        self.layout = layout
+        self.templates: dict[tuple, list[tuple[int, str, tuple]]] = {}
+
+    def row(self, numbers: Numbers, s: int, first: int, count: int, p: int) -> Iterator[Entry]:
+        table = self.layout.record
+        row = table.first_row + first + p
+        key = (p, count, s == 0)
+        template = self.templates.get(key) if SHAPED_RECORD_ROWS else None
+        if template is None:
+            entries = list(_record_row(self.layout, numbers, s, first, count, p))
+            if SHAPED_RECORD_ROWS:
+                self.templates[key] = self._template(entries, row, row - p, row - p - 1)
+            yield from entries
+            return
+        step = numbers.record.trace[s]
+        fields = {"r": row + 1, "f": row - p + 1, "p": row - p}
+        for col, text, column_key in template:
+            yield Entry(row, col, "formula", text.format_map(fields), _record_value(self.layout.spec, column_key,
+                                                                                    step, p))
+
+    def _template(self, entries: list[Entry], row: int, first: int, previous: int) -> list[tuple[int, str, tuple]]:
+        names = {str(row + 1): "{r}", str(first + 1): "{f}", str(previous + 1): "{p}"}
+        table = self.layout.record
+
+        def field(match: re.Match) -> str:
+            return match.group(1) + names.get(match.group(2), match.group(2))
+
+        return [(e.col, self._REF.sub(field, e.content.replace("{", "{{").replace("}", "}}")),
+                 table.columns[e.col - table.left].key) for e in entries]
+
+
+def _record_value(spec: BookSpec, key: tuple, step, p: int):
+    """The trainer's value behind a record cell, by its column key."""
+    kind = key[0]
+    if kind in ("z", "a", "d"):
+        source = {"z": step.z, "a": step.a, "d": step.delta}[kind]
+        return source[key[1]][p, key[2]]
+    if kind == "c":
+        _, k, j, n = key
+        return step.delta[k][p, j] * _source_values(step, k)[p, n]
+    if kind in ("g", "v", "w"):
+        _, k, j, n = key
+        return {"g": lambda: step.grad_w[k], "v": lambda: step.velocity[k][0],
+                "w": lambda: step.after[k].weights}[kind]()[j, n]
+    if kind in ("gb", "vb", "wb"):
+        _, k, j = key
+        return {"gb": lambda: step.grad_b[k], "vb": lambda: step.velocity[k][1],
+                "wb": lambda: step.after[k].bias}[kind]()[j]
+    if kind == "loss":
+        return step.loss[p]
+    if kind == "correct":
+        return correct_cases(spec.task, step.a[-1][p:p + 1], step.targets[p:p + 1], 0.5)[0]
+    z = step.z[-1][p]
+    return z.max() if kind == "smax" else np.exp(z - z.max()).sum()
+
+
+def _record_links(layout: BookLayout, numbers: Numbers, s: int, first: int, p: int) -> Iterator[Entry]:
+    """Step, epoch and case labels, and the links to the case's scaled inputs and targets."""
+    spec, table, scoring = layout.spec, layout.record, layout.scoring
+    step = numbers.record.trace[s]
+    row = table.first_row + first + p
+    case = spec.record.steps[s][p]
+    yield Entry(row, table.col(("step",)), "label", s + 1)
+    yield Entry(row, table.col(("epoch",)), "label", spec.record.epochs[s])
+    yield Entry(row, table.col(("case",)), "label", case + 1)
+    for n in range(len(spec.inputs)):
+        yield Entry(row, table.col(("x", n)), "formula", fx.reference(ref(scoring.cell(case, ("x", n)), RECORD)),
+                    step.inputs[p, n])
+    for k in range(len(spec.outputs)):
+        yield Entry(row, table.col(("t", k)), "formula",
+                    fx.reference(ref(scoring.cell(case, target_key(spec, k)), RECORD)), step.targets[p, k])
 
 
 def _in_force(layout: BookLayout, s: int):
@@ -430,20 +518,10 @@ def _in_force(layout: BookLayout, s: int):
 
 
 def _record_row(layout: BookLayout, numbers: Numbers, s: int, first: int, count: int, p: int) -> Iterator[Entry]:
-    spec, table, scoring = layout.spec, layout.record, layout.scoring
+    """The network, loss, delta, gradient and update cells of one record row (labels and links aside)."""
+    spec, table = layout.spec, layout.record
     step = numbers.record.trace[s]
     i = first + p
-    row = table.first_row + i
-    case = spec.record.steps[s][p]
-    yield Entry(row, table.col(("step",)), "label", s + 1)
-    yield Entry(row, table.col(("epoch",)), "label", spec.record.epochs[s])
-    yield Entry(row, table.col(("case",)), "label", case + 1)
-    for n in range(len(spec.inputs)):
-        yield Entry(row, table.col(("x", n)), "formula", fx.reference(ref(scoring.cell(case, ("x", n)), RECORD)),
-                    step.inputs[p, n])
-    for k in range(len(spec.outputs)):
-        yield Entry(row, table.col(("t", k)), "formula",
-                    fx.reference(ref(scoring.cell(case, target_key(spec, k)), RECORD)), step.targets[p, k])
     weights, bias, weight = _in_force(layout, s)
     refs = table_refs(table, i, spec, weights, bias)
     as_scored = Scored(x=step.inputs, fwd=_pass(step), smax=step.z[-1].max(axis=1),
