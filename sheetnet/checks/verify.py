@@ -125,8 +125,9 @@ def expected_formulas(book: Workbook, layout: BookLayout) -> list[tuple[str, int
     """(sheet, row, col, formula, reference value) of every formula cell sheetnet writes, for the
     inputs the file holds now (the reference trainer and scorer run here)."""
     numbers = compute(layout.spec, read_inputs(book, layout))
-    return [(sheet, e.row, e.col, e.content, e.value) for sheet, e in expected_entries(layout, numbers)
-            if e.role == "formula"]
+    as_float = float
+    return [(sheet, e.row, e.col, e.content, as_float(e.value) if isinstance(e.value, float) else e.value)
+            for sheet, e in expected_entries(layout, numbers) if e.role == "formula"]
 
 
 def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], engine_values: dict, engine: str,
@@ -147,13 +148,19 @@ def _compare_sheet(report: Comparison, book: Workbook, sheet: str, items: list, 
     formulas = cells.formulas if cells else {}
     cached = cells.values if cells else {}
     tolerance = report.tolerance
-    for _, row, col, formula, reference in items:
+    positions = [(row, col) for _, row, col, _, _ in items]
+    seen.update((sheet, pos) for pos in positions)
+    if list(formulas) == positions == list(values):
+        # the usual case: the file holds exactly the expected formula cells, in the same order
+        rows = zip(items, formulas.values(), values.values(), strict=True)
+    else:
+        rows = ((item, formulas.get(pos), values.get(pos)) for item, pos in zip(items, positions, strict=True))
+    for (_, row, col, formula, reference), found, value in rows:
         pos = (row, col)
-        seen.add((sheet, pos))
-        found = formulas.get(pos)
         if found is None or found != formula[1:]:
             _formula_difference(report, sheet, pos, formula, found, cells)
-        value = values.get(pos) if found is not None else cached.get(pos)
+            if found is None:
+                value = cached.get(pos)
         if type(value) is float and type(reference) is float:
             diff = value - reference if value > reference else reference - value
             scale = reference if reference > 0 else -reference
