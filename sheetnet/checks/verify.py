@@ -130,51 +130,87 @@ def expected_formulas(book: Workbook, layout: BookLayout) -> list[tuple[str, int
             for sheet, e in expected_entries(layout, numbers) if e.role == "formula"]
 
 
-def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], engine_values: dict, engine: str,
-            tolerance: float, general: list | None = None) -> Comparison:
-    """Every expected formula cell against the file's formula text and the engine's value."""
-    report = Comparison(engine=engine, tolerance=tolerance)
-    expected_cells: set[tuple[str, tuple[int, int]]] = set()
+@dataclass
+class Prepared:
+    """What can be compared before the engine finishes: formula text, and cached values against the
+    reference (a cached value that agrees with the reference is stale only if the engine disagrees)."""
+
+    sheets: list[tuple[str, list, list, dict]] = field(default_factory=list)  # (sheet, items, positions, constants)
+    differences: list[dict] = field(default_factory=list)
+    stale_candidates: list[tuple[str, tuple[int, int], object]] = field(default_factory=list)
+    unchecked_cache: set = field(default_factory=set)  # (sheet, pos) whose cached value agreed with the reference
+    extra: list[dict] = field(default_factory=list)
+
+
+def prepare(book: Workbook, expected: list[tuple[str, int, int, str, object]], tolerance: float) -> Prepared:
+    prepared = Prepared()
+    seen: set[tuple[str, tuple[int, int]]] = set()
     for sheet, group in itertools.groupby(expected, key=lambda item: item[0]):
-        _compare_sheet(report, book, sheet, list(group), engine_values.get(sheet, {}), expected_cells)
-    _extra_formulas(report, book, expected_cells)
+        _prepare_sheet(prepared, book, sheet, list(group), tolerance, seen)
+    prepared.extra = _extra_formulas(book, seen)
+    return prepared
+
+
+def _prepare_sheet(prepared: Prepared, book: Workbook, sheet: str, items: list, tolerance: float, seen: set) -> None:
+    cells = book.sheets.get(sheet)
+    formulas = cells.formulas if cells else {}
+    cached = cells.values if cells else {}
+    positions = [(row, col) for _, row, col, _, _ in items]
+    seen.update((sheet, pos) for pos in positions)
+    aligned = list(formulas) == positions
+    found_formulas = formulas.values() if aligned else [formulas.get(pos) for pos in positions]
+    constants = {}
+    for (_, row, col, formula, reference), found in zip(items, found_formulas, strict=True):
+        if found is None or found != formula[1:]:
+            pos = (row, col)
+            difference = _formula_difference(sheet, pos, formula, found, cells)
+            if difference is not None:
+                prepared.differences.append(difference)
+            if found is None:
+                constants[pos] = cached.get(pos)
+                continue
+        saved = cached.get((row, col))
+        if saved is None:
+            continue
+        if type(saved) is float and type(reference) is float and \
+                abs(saved - reference) <= tolerance * max(1.0, abs(reference)):
+            continue
+        prepared.stale_candidates.append((sheet, (row, col), saved))
+    prepared.sheets.append((sheet, items, positions, constants))
+
+
+def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], engine_values: dict, engine: str,
+            tolerance: float, general: list | None = None, prepared: Prepared | None = None) -> Comparison:
+    """Every expected formula cell against the file's formula text and the engine's value."""
+    prepared = prepared or prepare(book, expected, tolerance)
+    report = Comparison(engine=engine, tolerance=tolerance)
+    report.formula_differences = list(prepared.differences) + list(prepared.extra)
+    for sheet, items, positions, constants in prepared.sheets:
+        _compare_sheet(report, sheet, items, positions, constants, engine_values.get(sheet, {}))
+    for sheet, pos, saved in prepared.stale_candidates:
+        _check_stale(report, sheet, pos, saved, engine_values.get(sheet, {}).get(pos))
     report.general_path = [_cell(s, p) for s, p, _ in (general or [])][:LIST_LIMIT]
     return report
 
 
-def _compare_sheet(report: Comparison, book: Workbook, sheet: str, items: list, values: dict, seen: set) -> None:
-    """The hot loop of a verification: one sheet's expected formula cells."""
-    cells = book.sheets.get(sheet)
-    formulas = cells.formulas if cells else {}
-    cached = cells.values if cells else {}
+def _compare_sheet(report: Comparison, sheet: str, items: list, positions: list, constants: dict,
+                   values: dict) -> None:
+    """The hot loop of a verification: one sheet's engine values against the reference."""
     tolerance = report.tolerance
-    positions = [(row, col) for _, row, col, _, _ in items]
-    seen.update((sheet, pos) for pos in positions)
-    if list(formulas) == positions == list(values):
-        # the usual case: the file holds exactly the expected formula cells, in the same order
-        rows = zip(items, formulas.values(), values.values(), strict=True)
+    if not constants and list(values) == positions:  # the engine's values come in the expected order
+        found_values = values.values()
     else:
-        rows = ((item, formulas.get(pos), values.get(pos)) for item, pos in zip(items, positions, strict=True))
-    for (_, row, col, formula, reference), found, value in rows:
-        pos = (row, col)
-        if found is None or found != formula[1:]:
-            _formula_difference(report, sheet, pos, formula, found, cells)
-            if found is None:
-                value = cached.get(pos)
+        found_values = [constants[(r, c)] if (r, c) in constants else values.get((r, c)) for _, r, c, _, _ in items]
+    for (_, row, col, _, reference), value in zip(items, found_values, strict=True):
         if type(value) is float and type(reference) is float:
             diff = value - reference if value > reference else reference - value
             scale = reference if reference > 0 else -reference
             if diff > report.max_abs_diff or (scale and diff / scale > report.max_rel_diff):
-                _record_largest(report, sheet, pos, diff, scale)
+                _record_largest(report, sheet, (row, col), diff, scale)
             if diff > tolerance * (scale if scale > 1.0 else 1.0):
-                _mismatch(report, sheet, pos, value, reference)
+                _mismatch(report, sheet, (row, col), value, reference)
         else:
-            _check_value(report, sheet, pos, value, reference)
-        if found is not None:
-            saved = cached.get(pos)
-            if saved is not None and not (type(saved) is float and type(value) is float
-                                          and abs(saved - value) <= tolerance * max(1.0, abs(value))):
-                _check_stale(report, sheet, pos, saved, value)
+            _check_value(report, sheet, (row, col), value, reference)
     report.cells_compared += len(items)
     report.per_sheet[sheet] = report.per_sheet.get(sheet, 0) + len(items)
 
@@ -195,15 +231,14 @@ def _mismatch(report: Comparison, sheet: str, pos, value, expected) -> None:
         report.mismatches.append(item)
 
 
-def _formula_difference(report: Comparison, sheet: str, pos, expected: str, found: str | None, cells) -> None:
+def _formula_difference(sheet: str, pos, expected: str, found: str | None, cells) -> dict | None:
     if found is None:
         value = None if cells is None else cells.values.get(pos)
         note = "a constant where a formula belongs" if value is not None else "the formula is missing"
-        report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": expected,
-                                           "found": _plain(value), "note": note})
-    elif normalize_formula(found) != normalize_formula(expected):
-        report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": expected,
-                                           "found": "=" + found, "note": "formula changed"})
+        return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": _plain(value), "note": note}
+    if normalize_formula(found) != normalize_formula(expected):
+        return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": "=" + found, "note": "formula changed"}
+    return None  # written differently (spaces, case, number spelling), the same formula
 
 
 def _check_value(report: Comparison, sheet: str, pos, value, expected) -> None:
@@ -228,16 +263,13 @@ def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:
                                     "recalculated": _plain(value)})
 
 
-def _extra_formulas(report: Comparison, book: Workbook, expected: set) -> None:
+def _extra_formulas(book: Workbook, expected: set) -> list[dict]:
     from sheetnet.book.layout import LAYOUT
 
-    for sheet, cells in book.sheets.items():
-        if sheet == LAYOUT:
-            continue
-        for pos, formula in cells.formulas.items():
-            if (sheet, pos) not in expected:
-                report.formula_differences.append({"sheet": sheet, "cell": a1(*pos), "expected": None,
-                                                   "found": "=" + formula, "note": "a formula sheetnet did not write"})
+    return [{"sheet": sheet, "cell": a1(*pos), "expected": None, "found": "=" + formula,
+             "note": "a formula sheetnet did not write"}
+            for sheet, cells in book.sheets.items() if sheet != LAYOUT
+            for pos, formula in cells.formulas.items() if (sheet, pos) not in expected]
 
 
 def engine_values(book: Workbook, engine: str) -> tuple[dict, list]:
@@ -344,13 +376,14 @@ def _verify(path: Path, engine: str, tolerance: float) -> VerifyReport:
     running = [(name, Background(engine_values, book, name)) for name in names]
     try:
         expected = expected_formulas(book, layout)
+        prepared = prepare(book, expected, tolerance)  # while the engines still run
         comparisons = []
         for name, job in running:
             values, general = job.result()
             if name == "embedded":  # sent compactly, in the order of the file's formula cells
                 values = {sheet: dict(zip(book.sheets[sheet].formulas, items, strict=True))
                           for sheet, items in values.items()}
-            comparisons.append(compare(book, expected, values, name, tolerance, general))
+            comparisons.append(compare(book, expected, values, name, tolerance, general, prepared))
     finally:
         for _, job in running:
             job.stop()
