@@ -20,6 +20,7 @@ from defusedxml import ElementTree as SafeET
 
 from sheetnet.book.addresses import column_index
 from sheetnet.errors import WorkbookFormatError
+from sheetnet.parallel import Background, can_fork
 
 #: Refuse workbooks whose parts inflate to more than this in all, or any part beyond PART (zip bombs);
 #: a workbook of a million formula cells is about 150 MB inflated.
@@ -182,21 +183,48 @@ _FAST_CELL = re.compile(r'<c r="([A-Z]{1,3})([0-9]+)"([^>]*?)(?:/>|>(?:<f([^>]*?
                         r'(?:<v>([^<]*)</v>)?(?:<is>(.*?)</is>)?</c>)', re.S)
 
 
+#: Sheets larger than this are scanned in two halves at once (2 cores).
+SPLIT_BYTES = 8 * 1024 * 1024
+
+
 def read_sheet_xml(name: str, state: str, data: str, strings: list[str]) -> SheetCells:
     """All cells of one worksheet's XML.
 
     The common shape of a cell (``r`` as its first attribute, formula, value, inline string) is read
     with one regular expression over the whole sheet; if that does not account for every ``<c``
-    element, the sheet is read again cell by cell with a tolerant scanner.
+    element, the sheet is read again cell by cell with a tolerant scanner. A large sheet is scanned
+    in two halves, the second in a child process.
     """
     body_start = _SHEET_STATE.search(data)
     offset = body_start.start() if body_start else 0
-    cells = _FAST_CELL.findall(data, offset)
-    if len(cells) != data.count("<c ", offset):
+    middle = data.find("<row ", offset + (len(data) - offset) // 2) if len(data) > SPLIT_BYTES else -1
+    if middle > 0 and can_fork():
+        second = Background(_scan, data, middle, len(data), strings)
+        first = _scan(data, offset, middle, strings)
+        rest = second.result()
+    else:
+        first, rest = _scan(data, offset, len(data), strings), None
+    if first is None or (rest is None and middle > 0 and can_fork()):
         return _read_sheet_slowly(name, state, data, strings, offset)
-    sheet = SheetCells(name=name, state=state)
+    sheet = SheetCells(name=name, state=state, formulas=first[0], values=first[1])
+    shared = first[2]
+    if rest is not None:
+        sheet.formulas.update(rest[0])
+        sheet.values.update(rest[1])
+        shared += rest[2]
+    _resolve_shared(sheet, shared)
+    return sheet
+
+
+def _scan(data: str, start: int, end: int, strings: list[str]):
+    """(formulas, values, shared formulas) of the cells in data[start:end], or None when the fast
+    pattern does not account for every cell there."""
+    cells = _FAST_CELL.findall(data, start, end)
+    if len(cells) != data.count("<c ", start, end):
+        return None
     columns: dict[str, int] = {}
-    values, formulas = sheet.values, sheet.formulas
+    formulas: dict[tuple[int, int], str] = {}
+    values: dict[tuple[int, int], object] = {}
     shared: list[tuple[tuple[int, int], str, str]] = []
     for letters, digits, attrs, fattrs, ftext, vtext, inline in cells:
         col = columns.get(letters)
@@ -215,8 +243,7 @@ def read_sheet_xml(name: str, state: str, data: str, strings: list[str]) -> Shee
             values[pos] = float(vtext)
         else:
             values[pos] = _value(kind, vtext or None, None, strings)
-    _resolve_shared(sheet, shared)
-    return sheet
+    return formulas, values, shared
 
 
 def _resolve_shared(sheet: SheetCells, shared: list[tuple[tuple[int, int], str, str]]) -> None:

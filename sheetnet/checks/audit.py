@@ -23,9 +23,10 @@ from sheetnet.book.layout import BookLayout, Table
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.xlsxread import CellError, SheetCells, Workbook, read_workbook
-from sheetnet.checks.verify import Background, compare, engine_values, expected_entries, normalize_formula
+from sheetnet.checks.verify import compare, engine_values, expected_entries, normalize_formula
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
+from sheetnet.parallel import Background
 
 KINDS = ("structural", "formula_edits", "value_mismatches", "input_edits", "risks")
 VOLATILE = ("NOW", "TODAY", "RAND", "RANDBETWEEN", "OFFSET", "INDIRECT", "INFO", "CELL", "RANDARRAY")

@@ -11,8 +11,6 @@ from __future__ import annotations
 
 import itertools
 import math
-import multiprocessing
-import os
 import re
 import tempfile
 from collections.abc import Iterator
@@ -25,8 +23,9 @@ from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
-from sheetnet.errors import EvaluationError, WorkbookFormatError
+from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
+from sheetnet.parallel import Background
 
 ENGINES = ("embedded", "libreoffice", "both")
 DEFAULT_TOLERANCE = 1e-9
@@ -286,54 +285,6 @@ def engine_values(book: Workbook, engine: str) -> tuple[dict, list]:
     values = {name: {pos: cells.values.get(pos) for pos in cells.formulas}
               for name, cells in recalculated.sheets.items()}
     return values, []
-
-
-class Background:
-    """Run ``function(*args)`` in a forked child process and collect its result (or its exception).
-
-    Falls back to running in this process where fork is not available or there is one core.
-    """
-
-    def __init__(self, function, *args) -> None:
-        self._process = None
-        if "fork" not in multiprocessing.get_all_start_methods() or (os.cpu_count() or 1) < 2:
-            self._outcome = _outcome(function, args)
-            return
-        context = multiprocessing.get_context("fork")
-        self._receive, send = context.Pipe(duplex=False)
-        self._process = context.Process(target=_send_outcome, args=(send, function, args), daemon=True)
-        self._process.start()
-        send.close()
-
-    def result(self):
-        if self._process is not None:
-            try:
-                self._outcome = self._receive.recv()
-            except EOFError:
-                raise EvaluationError("the recalculation process ended unexpectedly") from None
-            self._process.join()
-            self._process = None
-        ok, payload = self._outcome
-        if not ok:
-            raise payload
-        return payload
-
-    def stop(self) -> None:
-        if self._process is not None and self._process.is_alive():
-            self._process.kill()
-            self._process.join()
-
-
-def _outcome(function, args) -> tuple[bool, object]:
-    try:
-        return True, function(*args)
-    except Exception as exc:
-        return False, exc
-
-
-def _send_outcome(send, function, args) -> None:
-    send.send(_outcome(function, args))
-    send.close()
 
 
 @dataclass

@@ -12,12 +12,15 @@ import io
 import math
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from sheetnet.errors import DataError, UsageError
 from sheetnet.net.model import TASKS, Scaling
+
+if TYPE_CHECKING:  # pandas is imported only where a DataFrame is used (start-up time)
+    import pandas as pd
 
 MAX_ROWS = 1_000_000
 MAX_COLUMNS = 1_000

@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-import pandas as pd
 
 from sheetnet.net import data as dataio
 from sheetnet.net.model import Model
+
+if TYPE_CHECKING:
+    import pandas as pd
 from sheetnet.net.network import predict_outputs
 
 
@@ -34,6 +38,8 @@ def score_table(model: Model, table: dataio.Table, threshold: float = 0.5) -> pd
     """The model's input columns (as written in the file) plus scores and ``predicted``."""
     x = dataio.feature_matrix(table, model.inputs)
     y = predict_outputs(model, x)
+    import pandas as pd  # imported here: the other commands start faster without it
+
     frame = pd.DataFrame({name: table.column(name) for name in model.inputs})
     columns = output_columns(model)
     if model.task == "regression":
