@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import json
 import os
-import resource
 import subprocess
 import sys
 import tempfile
@@ -40,13 +39,17 @@ def build(path: Path, cells: int) -> int:
     return write_workbook(spec, inputs, path, max_cells=10**8).formula_cells
 
 
+MEASURE = ("import resource, subprocess, sys\n"
+           "subprocess.run(sys.argv[1:], check=True, capture_output=True)\n"
+           "print(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss)")
+
+
 def timed(command: list[str]) -> tuple[float, float]:
-    """Wall seconds and peak resident MB of a command run in a child process (its children included)."""
+    """Wall seconds and peak resident MB of a command (the largest of its processes), measured by a
+    fresh intermediate process so earlier runs do not count."""
     start = time.perf_counter()
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    subprocess.run(command, check=True, capture_output=True)
-    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    return time.perf_counter() - start, max(peak, before) / 1024
+    out = subprocess.run([sys.executable, "-c", MEASURE, *command], check=True, capture_output=True, text=True)
+    return time.perf_counter() - start, int(out.stdout.split()[-1]) / 1024
 
 
 def verify_against_libreoffice(folder: Path, cells: int) -> None:

@@ -5,10 +5,12 @@ delta, gradient and update is a cell formula, re-evaluate it independently, and 
 """
 
 from sheetnet.errors import SheetNetError
+from sheetnet.interop import from_sklearn
 from sheetnet.net.activations import Activation
 from sheetnet.net.model import Layer, Model, Scaling, load_model
 from sheetnet.net.train import TrainSettings
 
 __version__ = "0.1.0"
 
-__all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetError", "TrainSettings", "__version__", "load_model"]
+__all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetError", "TrainSettings", "__version__", "from_sklearn",
+           "load_model"]
