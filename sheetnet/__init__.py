@@ -12,5 +12,10 @@ from sheetnet.net.train import TrainSettings
 
 __version__ = "0.1.0"
 
-__all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetError", "TrainSettings", "__version__", "from_sklearn",
-           "load_model"]
+try:  # the scikit-learn style estimators need scikit-learn (pip install 'sheetnet[test]' brings it)
+    from sheetnet.estimator import SheetNetClassifier, SheetNetRegressor
+except ImportError:  # pragma: no cover - depends on the environment
+    SheetNetClassifier = SheetNetRegressor = None
+
+__all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
+           "TrainSettings", "__version__", "from_sklearn", "load_model"]

@@ -100,5 +100,6 @@ def test_unsupported_models_get_a_clear_message():
 
 def test_frame_columns_name_the_inputs():
     x = pd.DataFrame({"width": [0.1, 0.9, 0.4, 0.7], "height": [1.0, 0.2, 0.5, 0.3]})
-    model = sheetnet.from_sklearn(_fit(MLPClassifier(hidden_layer_sizes=(2,), max_iter=50, random_state=0), x, [0, 1, 0, 1]))
+    estimator = MLPClassifier(hidden_layer_sizes=(2,), max_iter=50, random_state=0)
+    model = sheetnet.from_sklearn(_fit(estimator, x, [0, 1, 0, 1]))
     assert model.inputs == ("width", "height") and model.classes == ("0", "1")
