@@ -1,4 +1,4 @@
-"""The command line: ``sheetnet train | score | build | demo | verify | audit | extract``.
+"""The command line: ``sheetnet train | score | build | demo | verify | audit | extract | report | rates``.
 
 Thin by design: parse flags, call the library, print a summary. Every :class:`SheetNetError`
 becomes one line on stderr and its exit code (1 bad data, 2 bad usage); nothing else prints
@@ -22,7 +22,7 @@ from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from
 from sheetnet.checks.annotate import annotate
 from sheetnet.checks.audit import audit
 from sheetnet.checks.extract import extract
-from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, verify
+from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, VERIFY_STAGES, verify
 from sheetnet.demo import DEMO_FLAGS, demo_csv_text
 from sheetnet.errors import CannotVerifyError, EvaluationError, SheetNetError, UsageError, WorkbookFormatError
 from sheetnet.files import check_output, write_atomic, write_text_atomic
@@ -94,6 +94,13 @@ def _batch(text: str) -> int | None:
     return None if text.strip().lower() == "full" else _count(text)
 
 
+def _rates(text: str) -> list[float]:
+    rates = [_positive(part) for part in text.split(",") if part.strip()]
+    if len(rates) < 2:
+        raise argparse.ArgumentTypeError(f"give at least two learning rates, got {text!r}")
+    return rates
+
+
 def _holdout(text: str) -> float | str:
     if text == "auto":
         return text
@@ -161,18 +168,29 @@ def _parser() -> argparse.ArgumentParser:
                           help="a cell agrees when |found - expected| <= tolerance * max(1, |expected|)")
     verify_p.add_argument("--json", type=Path, help="write the report as JSON here")
     verify_p.add_argument("--force", action="store_true", help="overwrite an existing JSON report")
+    verify_p.add_argument("--quiet", action="store_true", help="no progress bar")
     audit_p = commands.add_parser("audit", help="find exactly what changed in an edited workbook")
     audit_p.add_argument("book", type=Path)
     audit_p.add_argument("--against", type=Path, help="the original workbook to compare with")
     audit_p.add_argument("--json", type=Path, help="write the findings as JSON here")
     audit_p.add_argument("--annotate", type=Path, help="write a copy with every finding highlighted")
     audit_p.add_argument("--force", action="store_true", help="overwrite existing report files")
+    audit_p.add_argument("--quiet", action="store_true", help="no progress bar")
     extract_p = commands.add_parser("extract", help="read the (edited) parameters back as a model file")
     extract_p.add_argument("book", type=Path)
     extract_p.add_argument("--after-training", action="store_true",
                            help="take the parameters after the last step of the training record")
     extract_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
     extract_p.add_argument("--force", action="store_true")
+    report_p = commands.add_parser("report", help="an HTML report with plots for a model file or a workbook")
+    report_p.add_argument("source", type=Path, help="MODEL.json or BOOK.xlsx")
+    report_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
+    report_p.add_argument("--force", action="store_true")
+    rates_p = commands.add_parser("rates", help="compare learning rates from the same initial weights")
+    add_train_flags(rates_p)
+    rates_p.add_argument("--rates", type=_rates, required=True, help="learning rates to compare, e.g. 0.01,0.1,1")
+    rates_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="HTML report to write")
+    rates_p.add_argument("--workbook", type=Path, help="also write a workbook with the curves and a native chart")
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path)
     score_p.add_argument("data", type=Path)
@@ -323,7 +341,8 @@ def cmd_verify(args: argparse.Namespace) -> int:
     if args.json:
         check_output(args.json, args.force, inputs=[args.book])
     try:
-        report = verify(args.book, engine=args.engine, tolerance=args.tolerance)
+        bar = Progress(VERIFY_STAGES, "verifying", quiet=args.quiet)
+        report = verify(args.book, engine=args.engine, tolerance=args.tolerance, progress=bar)
     except (WorkbookFormatError, EvaluationError) as exc:
         raise CannotVerifyError(f"cannot verify: {exc}") from None
     print("\n".join(verify_lines(report)))
@@ -338,7 +357,10 @@ def cmd_audit(args: argparse.Namespace) -> int:
     for path in (args.json, args.annotate):
         if path:
             check_output(path, args.force, inputs=sources)
+    bar = Progress(1, "auditing", quiet=args.quiet)
+    bar(0)
     report = audit(args.book, against=args.against)
+    bar(1)
     print("\n".join(audit_lines(report)))
     if args.json:
         write_text_atomic(args.json, json.dumps(report.to_dict(), indent=2, default=str) + "\n", force=args.force)
@@ -356,8 +378,96 @@ def cmd_extract(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_report(args: argparse.Namespace) -> int:
+    from sheetnet.htmlreport import page, write_html
+
+    check_output(args.out, args.force, inputs=[args.source])
+    if args.source.suffix.lower() == ".json":
+        title, sections = f"sheetnet report: {args.source.name}", _model_report(args.source)
+    else:
+        title, sections = f"sheetnet report: {args.source.name}", _book_report(args.source)
+    write_html(args.out, page(title, sections), args.force)
+    print(f"report written to {args.out}")
+    return 0
+
+
+def _model_report(path: Path):
+    from sheetnet.htmlreport import model_sections
+
+    return model_sections(load_model(path))
+
+
+def _book_report(path: Path):
+    from sheetnet.book.numbers import compute
+    from sheetnet.book.read import read_inputs, read_layout
+    from sheetnet.book.xlsxread import read_workbook
+    from sheetnet.htmlreport import Section, loss_plot, model_sections
+    from sheetnet.net.metrics import evaluate
+
+    book = read_workbook(path)
+    layout, _ = read_layout(book)
+    inputs = read_inputs(book, layout)
+    spec = layout.spec
+    model = inputs.model(spec)
+    numbers = compute(spec, inputs)
+    x = np.array([row[: len(spec.inputs)] for row in inputs.data], dtype=float) if inputs.data else None
+    labels = None
+    if numbers.scoring.t is not None and spec.is_classification:
+        codes = np.argmax(numbers.scoring.t, axis=1) if spec.task == "multiclass" else \
+            (numbers.scoring.t[:, 0] >= 0.5).astype(int)
+        names = spec.classes or ("0", "1")
+        labels = [str(names[c]) for c in codes]
+    training = {}
+    if numbers.record is not None:
+        training["epoch_loss"] = numbers.record.epoch_loss.tolist()
+    held = np.array([s == "holdout" for s in spec.sets]) if spec.sets else np.array([], dtype=bool)
+    if numbers.scoring.t is not None and held.any():
+        training["holdout_metrics"] = evaluate(model, x[held], numbers.scoring.t[held], inputs.threshold).to_dict()
+    sections = model_sections(replace(model, training=training), x, labels)
+    result = verify(path)
+    sections.append(Section("Verification", verify_lines(result), []))
+    if numbers.record is not None:
+        sections.insert(1, Section("Training record", ["Mean loss per epoch of the record, as the reference "
+                                                       "trainer replays it from the workbook's inputs."],
+                                   [loss_plot({"record": numbers.record.epoch_loss.tolist()}, "training record")]))
+    return sections
+
+
+def cmd_rates(args: argparse.Namespace) -> int:
+    from sheetnet.book.write import write_rate_book
+    from sheetnet.htmlreport import Section, loss_plot, page, write_html
+    from sheetnet.rates import best, compare_rates, summary_rows
+
+    for path in (args.out, args.workbook):
+        if path:
+            check_output(path, args.force, inputs=[p for p in (args.data, args.init) if p])
+    settings = settings_from(args)
+    table = dataio.read_csv(args.data)
+    start = load_model(args.init) if args.init else None
+    runs = compare_rates(table, args.target or (), args.rates, settings, architecture_from(args), args.holdout, start)
+    rows = summary_rows(runs)
+    chosen = best(runs)
+    verdict = (f"lowest {'holdout' if chosen and chosen.holdout_loss is not None else 'training'} loss at learning "
+               f"rate {chosen.rate:g}" if chosen else "every rate diverged; try smaller rates")
+    for row in rows:
+        print("  ".join(f"{v:>20}" if not isinstance(v, float) else f"{v:>20.6g}" for v in row))
+    print(verdict)
+    curves = {f"lr {r.rate:g}": r.curve for r in runs if r.curve}
+    images = [loss_plot(curves, "training loss by learning rate")] if curves else []
+    note = ("Every run starts from the same initial weights, with the same split and batches. 'diverged': the "
+            "loss became non-finite or never beat the untrained start; 'unstable': the last epoch's loss is over "
+            "1.5 times its lowest; 'stalled': it is still above 95% of the first epoch's.")
+    sections = [Section("Learning rates", [verdict, note], images, [[str(v) for v in row] for row in rows])]
+    write_html(args.out, page(f"sheetnet learning-rate comparison: {args.data.name}", sections), args.force)
+    print(f"report written to {args.out}")
+    if args.workbook and curves:
+        write_atomic(args.workbook, lambda tmp: write_rate_book(tmp, curves, rows), force=args.force)
+        print(f"workbook written to {args.workbook}")
+    return 0
+
+
 COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo, "verify": cmd_verify,
-            "audit": cmd_audit, "extract": cmd_extract}
+            "audit": cmd_audit, "extract": cmd_extract, "report": cmd_report, "rates": cmd_rates}
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -371,6 +481,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("sheetnet: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader of our output went away (e.g. `| head`): nothing left to say
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except Exception as exc:  # a bug: still one line, never a traceback (set SHEETNET_DEBUG=1 to see it)
         if os.environ.get("SHEETNET_DEBUG"):
             raise

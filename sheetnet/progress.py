@@ -21,7 +21,7 @@ class Progress:
         if not self.enabled:
             return
         now = time.monotonic()
-        if done < self.total and now - self._last < 0.1:
+        if 0 < done < self.total and now - self._last < 0.1:
             return
         self._last = now
         width = 30

@@ -282,3 +282,41 @@ class Tally:
                 batch = []
             yield entry
         self.fingerprints.add_all(sheet, batch)
+
+
+def write_rate_book(path: Path, curves: dict[str, list[float]], rows: list[list[object]]) -> None:
+    """A small workbook comparing learning rates: loss per epoch per rate, a native line chart, a summary."""
+    book = xlsxwriter.Workbook(str(path), {"strings_to_numbers": False, "strings_to_formulas": False})
+    book.set_properties({"title": "sheetnet learning-rate comparison", "created": FIXED_DATE, "author": "sheetnet"})
+    formats = _formats(book)
+    sheet = book.add_worksheet("Learning rates")
+    sheet.set_column(0, 0, 10)
+    sheet.set_column(1, len(curves) + 1, 16)
+    sheet.write_string(0, 0, "Mean training loss per epoch, one column per learning rate (same initial weights)",
+                       formats["title"])
+    sheet.write_string(2, 0, "epoch", formats["header"])
+    length = max(len(v) for v in curves.values())
+    for j, (label, values) in enumerate(curves.items(), start=1):
+        sheet.write_string(2, j, label, formats["header"])
+        for i, value in enumerate(values):
+            if np.isfinite(value):
+                sheet.write_number(3 + i, j, float(value), formats["formula"])
+    for i in range(length):
+        sheet.write_number(3 + i, 0, i + 1, formats["label"])
+    chart = book.add_chart({"type": "line"})
+    for j, label in enumerate(curves, start=1):
+        chart.add_series({"name": label, "categories": ["Learning rates", 3, 0, 2 + length, 0],
+                          "values": ["Learning rates", 3, j, 2 + length, j]})
+    chart.set_title({"name": "Training loss per epoch by learning rate"})
+    chart.set_x_axis({"name": "epoch"})
+    chart.set_y_axis({"name": "mean loss"})
+    sheet.insert_chart(2, len(curves) + 2, chart, {"x_scale": 1.5, "y_scale": 1.4})
+    top = 4 + length
+    for i, row in enumerate(rows):
+        for j, value in enumerate(row):
+            role = "header" if i == 0 else "label"
+            if isinstance(value, float | int) and not isinstance(value, bool) and np.isfinite(value):
+                sheet.write_number(top + i, j, float(value), formats[role])
+            else:
+                sheet.write_string(top + i, j, str(value), formats[role])
+    book.close()

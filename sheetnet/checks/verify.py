@@ -310,16 +310,24 @@ class VerifyReport:
         return merged
 
 
-def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAULT_TOLERANCE) -> VerifyReport:
-    """Verify a workbook; raises WorkbookFormatError when it cannot be verified at all."""
+VERIFY_STAGES = 4
+
+
+def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAULT_TOLERANCE,
+           progress=None) -> VerifyReport:
+    """Verify a workbook; raises WorkbookFormatError when it cannot be verified at all.
+
+    ``progress`` (optional) is called with the number of finished stages out of VERIFY_STAGES."""
     if engine not in ENGINES:
         raise WorkbookFormatError(f"unknown engine {engine!r}; expected one of {', '.join(ENGINES)}")
     with paused_gc():
-        return _verify(Path(path), engine, tolerance)
+        return _verify(Path(path), engine, tolerance, progress or (lambda _done: None))
 
 
-def _verify(path: Path, engine: str, tolerance: float) -> VerifyReport:
+def _verify(path: Path, engine: str, tolerance: float, progress) -> VerifyReport:
+    progress(0)
     book = read_workbook(path)
+    progress(1)
     layout, _ = read_layout(book)
     names = ("embedded", "libreoffice") if engine == "both" else (engine,)
     # The engines recalculate in child processes while this one runs the reference: both need
@@ -328,14 +336,17 @@ def _verify(path: Path, engine: str, tolerance: float) -> VerifyReport:
     try:
         expected = expected_formulas(book, layout)
         prepared = prepare(book, expected, tolerance)  # while the engines still run
+        progress(2)
         comparisons = []
         for name, job in running:
             values, general = job.result()
             if name == "embedded":  # sent compactly, in the order of the file's formula cells
                 values = {sheet: dict(zip(book.sheets[sheet].formulas, items, strict=True))
                           for sheet, items in values.items()}
+            progress(3)
             comparisons.append(compare(book, expected, values, name, tolerance, general, prepared))
     finally:
         for _, job in running:
             job.stop()
+    progress(VERIFY_STAGES)
     return VerifyReport(path=Path(path), comparisons=comparisons)
