@@ -4,6 +4,15 @@ Train with the numpy reference trainer, write an .xlsx whose every weighted sum,
 delta, gradient and update is a cell formula, re-evaluate it independently, and audit edits.
 """
 
+from sheetnet.api import (
+    audit_workbook,
+    build_workbook,
+    extract_model,
+    score,
+    settings,
+    train,
+    verify_workbook,
+)
 from sheetnet.errors import SheetNetError
 from sheetnet.interop import from_sklearn
 from sheetnet.net.activations import Activation
@@ -18,4 +27,5 @@ except ImportError:  # pragma: no cover - depends on the environment
     SheetNetClassifier = SheetNetRegressor = None
 
 __all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
-           "TrainSettings", "__version__", "from_sklearn", "load_model"]
+           "TrainSettings", "__version__", "audit_workbook", "build_workbook", "extract_model", "from_sklearn",
+           "load_model", "score", "settings", "train", "verify_workbook"]

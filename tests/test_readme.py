@@ -19,7 +19,15 @@ def test_readme_python_example_runs(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     (example,) = _blocks("python")
     exec(compile(example, "README.md", "exec"), {})
-    assert (tmp_path / "kiln.json").exists()
+    assert (tmp_path / "kiln.json").exists() and (tmp_path / "kiln.xlsx").exists()
+
+
+def test_api_docstring_examples_run():
+    import doctest
+
+    import sheetnet.api
+
+    assert doctest.testmod(sheetnet.api).failed == 0
 
 
 def test_ci_runs_the_readme_test_command():

@@ -1,0 +1,114 @@
+"""The Python API: everything the command line does, for notebooks and scripts.
+
+Data may be a CSV path, a pandas DataFrame, or a numpy array (columns named ``x1``, ``x2``, ...;
+with ``target`` naming the target column(s) among them). Functions raise :class:`SheetNetError`
+subclasses with the same messages the command line prints.
+
+>>> import numpy as np, sheetnet
+>>> x = np.array([[0, 0, 0], [0, 1, 1], [1, 0, 1], [1, 1, 0]] * 5, dtype=float)
+>>> outcome = sheetnet.train(x, target="x3", hidden=(3,), learning_rate=1.0, epochs=5, batch_size="full")
+>>> outcome.model.task
+'binary'
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.net import data as dataio
+from sheetnet.net.activations import Activation
+from sheetnet.net.fit import Architecture, FitOutcome, fit
+from sheetnet.net.model import Model, load_model
+from sheetnet.net.train import TrainSettings
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+
+def as_table(data, source: str = "data") -> dataio.Table:
+    """A CSV path, a DataFrame or a 2-D numpy array as a data table."""
+    if isinstance(data, str | Path):
+        return dataio.read_csv(data)
+    if isinstance(data, np.ndarray):
+        import pandas as pd
+
+        data = pd.DataFrame(np.atleast_2d(data), columns=[f"x{i + 1}" for i in range(np.atleast_2d(data).shape[1])])
+    return dataio.table_from_frame(data, source)
+
+
+def _columns(value) -> tuple[str, ...]:
+    return (value,) if isinstance(value, str) else tuple(value)
+
+
+SETTINGS = ("learning_rate", "epochs", "batch_size", "shuffle", "seed", "momentum", "l2")
+
+
+def settings(learning_rate: float = 0.1, epochs: int = 100, batch_size: int | str = 1, shuffle: bool = True,
+             seed: int = 0, momentum: float = 0.0, l2: float = 0.0) -> TrainSettings:
+    """Gradient-descent settings; ``batch_size="full"`` uses every training row per step."""
+    return TrainSettings(learning_rate=learning_rate, epochs=epochs,
+                         batch_size=None if batch_size == "full" else int(batch_size), shuffle=shuffle, seed=seed,
+                         momentum=momentum, l2=l2)
+
+
+def train(data, target, hidden=(4,), activation: str = "sigmoid", output: str | None = None, loss: str | None = None,
+          task: str | None = None, scale: str = "standard", learning_rate: float = 0.1, epochs: int = 100,
+          batch_size: int | str = 1, shuffle: bool = True, seed: int = 0, momentum: float = 0.0, l2: float = 0.0,
+          holdout: float | str = "auto", init: Model | str | Path | None = None) -> FitOutcome:
+    """Train like ``sheetnet train``; the result's ``model`` saves with ``.save(path)``."""
+    run = settings(learning_rate, epochs, batch_size, shuffle, seed, momentum, l2)
+    arch = Architecture(hidden=tuple(hidden), activation=Activation(activation), output=output, loss=loss, task=task,
+                        scale=scale)
+    start = load_model(init) if isinstance(init, str | Path) else init
+    return fit(as_table(data), _columns(target), run, arch, start=start, holdout=holdout)
+
+
+def score(model: Model | str | Path, data, threshold: float = 0.5) -> pd.DataFrame:
+    """Scores like ``sheetnet score``: input columns, probabilities (or values) and ``predicted``."""
+    from sheetnet.net.score import score_table
+
+    model = load_model(model) if isinstance(model, str | Path) else model
+    return score_table(model, as_table(data), threshold)
+
+
+def build_workbook(path, data=None, target=None, model: Model | str | Path | None = None, trace_epochs=None,
+                   trace_rows=None, max_cells: int = DEFAULT_MAX_CELLS, force: bool = False, **train_options) -> Path:
+    """Write the workbook like ``sheetnet build``: train on ``data`` (``train_options`` as for :func:`train`), or
+    write it for ``model`` (with ``data``: scoring, and a record starting from the model's weights)."""
+    options = RecordOptions(epochs=trace_epochs, rows=trace_rows)
+    run = settings(**{k: v for k, v in train_options.items() if k in SETTINGS})
+    table = None if data is None else as_table(data)
+    if model is None:
+        spec, inputs = from_fit(train(data, target, **train_options), table, run, options)
+    else:
+        model = load_model(model) if isinstance(model, str | Path) else model
+        if target is not None:
+            model = replace(model, target=_columns(target))
+        spec, inputs, _ = from_model(model, table, run if table is not None else None, options)
+    return write_workbook(spec, inputs, Path(path), force=force, max_cells=max_cells).path
+
+
+def verify_workbook(path, engine: str = "embedded", tolerance: float = 1e-9):
+    """Recalculate and compare like ``sheetnet verify``; the report's ``ok`` and ``to_dict()`` say the rest."""
+    from sheetnet.checks.verify import verify
+
+    return verify(path, engine=engine, tolerance=tolerance)
+
+
+def audit_workbook(path, against=None):
+    """Classified findings like ``sheetnet audit`` (``report.to_dict()`` is the JSON report)."""
+    from sheetnet.checks.audit import audit
+
+    return audit(path, against=against)
+
+
+def extract_model(path, after_training: bool = False) -> Model:
+    """The workbook's (possibly edited) model like ``sheetnet extract``."""
+    from sheetnet.checks.extract import extract
+
+    return extract(path, after_training=after_training)[0]
