@@ -9,12 +9,9 @@ so a shifted layout never crashes the audit or floods it.
 
 from __future__ import annotations
 
-import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-
-import numpy as np
 
 from sheetnet.book import layout as L
 from sheetnet.book.addresses import Block, a1, column_letters, defined_name_target
@@ -23,7 +20,7 @@ from sheetnet.book.layout import BookLayout, Table
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.xlsxread import CellError, SheetCells, Workbook, read_workbook
-from sheetnet.checks.verify import compare, engine_values, expected_entries, normalize_formula
+from sheetnet.checks.verify import _plain, compare, engine_values, expected_entries, normalize_formula
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
@@ -49,16 +46,6 @@ class Finding:
     def to_dict(self) -> dict:
         return {"sheet": self.sheet, "cell": self.cell, "kind": self.kind, "expected": _plain(self.expected),
                 "found": _plain(self.found), "note": self.note}
-
-
-def _plain(value):
-    if isinstance(value, CellError):
-        return value.code
-    if isinstance(value, np.floating | np.integer):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    return value
 
 
 @dataclass

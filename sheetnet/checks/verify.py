@@ -17,6 +17,8 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
+
 from sheetnet.book import plan
 from sheetnet.book.addresses import a1, quote_sheet
 from sheetnet.book.layout import BookLayout
@@ -75,8 +77,11 @@ def _cell(sheet: str, pos: tuple[int, int]) -> str:
 
 
 def _plain(value):
+    """A value as JSON can hold it: error codes as text, numpy scalars as Python numbers."""
     if isinstance(value, CellError):
         return value.code
+    if isinstance(value, np.floating | np.integer):
+        value = value.item()
     if isinstance(value, float) and not math.isfinite(value):
         return str(value)
     return value

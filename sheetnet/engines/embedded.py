@@ -438,17 +438,9 @@ class Engine:
         deferred = []
         for store, key, function, runs, row in order:
             try:
-                value = function(row, runs)
-                if type(value) is not float or value - value != 0.0:
-                    value = _result(value)
+                store.out[key] = _evaluate(function, row, runs)
             except NotReady:
                 deferred.append((store, key))
-                continue
-            except xf.XlErr as err:
-                value = CellError(err.code)
-            except (OverflowError, ValueError, ZeroDivisionError):
-                value = CellError("#NUM!")
-            store.out[key] = value
         return deferred
 
     def _compute(self, store: Store, key: int) -> None:
@@ -462,7 +454,7 @@ class Engine:
                 continue
             function, runs, row = s.formulas[k]
             try:
-                value = _result(function(row, runs))
+                value = _evaluate(function, row, runs)
             except NotReady as wait:
                 ident = (id(wait.store), wait.key)
                 if ident in active:
@@ -471,10 +463,6 @@ class Engine:
                 stack.append((wait.store, wait.key))
                 active.add(ident)
                 continue
-            except xf.XlErr as err:
-                value = CellError(err.code)
-            except (OverflowError, ValueError, ZeroDivisionError):
-                value = CellError("#NUM!")
             s.out[k] = value
             stack.pop()
             active.discard((id(s), k))
@@ -496,6 +484,17 @@ def _nothing(_runs: list) -> tuple:
 
 def _fixed_row(_dollar: str, digits: str) -> str:
     return str(int(digits) - 1)
+
+
+def _evaluate(function, row: int, runs: tuple):
+    """One cell's value: errors become error values; NotReady passes through to the scheduler."""
+    try:
+        value = function(row, runs)
+        return value if type(value) is float and value - value == 0.0 else _result(value)
+    except xf.XlErr as err:
+        return CellError(err.code)
+    except (OverflowError, ValueError, ZeroDivisionError):
+        return CellError("#NUM!")
 
 
 def _single(value):
