@@ -333,8 +333,11 @@ def cmd_demo(args: argparse.Namespace) -> int:
     flags += ["--force"] if args.force else []
     flags += ["--quiet"] if args.quiet else []
     code = cmd_build(_parser().parse_args(flags))
+    report = verify(book, progress=Progress(VERIFY_STAGES, "verifying", quiet=args.quiet))
+    print(verify_lines(report)[-1] + " (embedded engine)")
     print(f"demo data (invented) written to {data}")
-    return code
+    print(f"demo workbook written to {book}: open it in a spreadsheet application, start with the Guide sheet")
+    return code if report.ok else 1
 
 
 def cmd_verify(args: argparse.Namespace) -> int:

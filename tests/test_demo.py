@@ -20,7 +20,7 @@ def test_demo_data_is_current_and_labelled_invented():
 def test_demo_command_rebuilds_the_committed_workbook(tmp_path, run_cli):
     code, out, err = run_cli("demo", "--out", tmp_path, "--quiet")
     assert code == 0, err
-    assert str(tmp_path / "kiln_demo.xlsx") in out
+    assert str(tmp_path / "kiln_demo.xlsx") in out and "verdict: OK" in out
     fresh, committed = tmp_path / "kiln_demo.xlsx", DEMO / "kiln_demo.xlsx"
     assert formula_cells(fresh) == formula_cells(committed), "run: python workbooks_demo/regenerate.py"
     fresh_values = cached_values(fresh)
