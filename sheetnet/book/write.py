@@ -290,6 +290,8 @@ def write_rate_book(path: Path, curves: dict[str, list[float]], rows: list[list[
     book.set_properties({"title": "sheetnet learning-rate comparison", "created": FIXED_DATE, "author": "sheetnet"})
     formats = _formats(book)
     sheet = book.add_worksheet("Learning rates")
+    sheet.set_landscape()
+    sheet.fit_to_pages(1, 0)
     sheet.set_column(0, 0, 10)
     sheet.set_column(1, len(curves) + 1, 16)
     sheet.write_string(0, 0, "Mean training loss per epoch, one column per learning rate (same initial weights)",
@@ -316,7 +318,7 @@ def write_rate_book(path: Path, curves: dict[str, list[float]], rows: list[list[
         for j, value in enumerate(row):
             role = "header" if i == 0 else "label"
             if isinstance(value, float | int) and not isinstance(value, bool) and np.isfinite(value):
-                sheet.write_number(top + i, j, float(value), formats[role])
+                sheet.write_number(top + i, j, float(value), formats["label" if j == 0 else "formula"])
             else:
                 sheet.write_string(top + i, j, str(value), formats[role])
     book.close()
