@@ -66,8 +66,7 @@ BAD_USAGE = {
     "batch size 0": (["--target", "label", "--batch-size", "0"], 2, "--batch-size"),
     "unknown flag": (["--target", "label", "--bogus"], 2, "--bogus"),
     "step cannot train": (["--target", "label", "--init", "STEP"], 2, "step"),
-    "ce with identity": (["--target", "label", "--output", "identity", "--loss", "cross-entropy"], 2,
-                         "cross-entropy needs probabilities"),
+    "unknown loss": (["--target", "label", "--loss", "hinge"], 2, "--loss"),
 }
 
 

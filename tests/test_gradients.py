@@ -15,7 +15,8 @@ from sheetnet.net.network import deltas, forward_pass, gradients
 HIDDEN = [Activation("sigmoid"), Activation("sigmoid", 2.5, 0.3), Activation("tanh"), Activation("relu"),
           Activation("identity")]
 OUTPUT_LOSS = [("identity", "squared"), ("sigmoid", "squared"), ("tanh", "squared"), ("relu", "squared"),
-               ("softmax", "squared"), ("sigmoid", "cross-entropy"), ("softmax", "cross-entropy")]
+               ("softmax", "squared"), ("sigmoid", "cross-entropy"), ("softmax", "cross-entropy"),
+               ("identity", "cross-entropy"), ("tanh", "cross-entropy")]
 
 
 def _objective(layers, x, t, loss, l2):

@@ -53,7 +53,7 @@ def _broken(mutate):
     (lambda d: d.__setitem__("format", "other"), "format"),
     (lambda d: d.__setitem__("version", 9), "version"),
     (lambda d: d.__setitem__("loss", "hinge"), "loss"),
-    (lambda d: d["layers"][1].__setitem__("activation", {"name": "tanh"}), "loss"),
+    (lambda d: d["layers"][1].__setitem__("activation", {"name": "tanh", "steepness": 2}), "layers[1].activation"),
 ])
 def test_validation_names_the_json_path(mutate, path):
     with pytest.raises(ModelFileError, match=r"^" + path.replace("[", r"\[").replace("]", r"\]").replace(".", r"\.")):

@@ -48,6 +48,8 @@ CONFIGS = {
                                         "--batch-size", "4", "--epochs", "2"]),
     "softmax-squared-two-layers": ("three", ["--target", "kind", "--hidden", "2,2", "--loss", "squared",
                                              "--epochs", "1", "--batch-size", "2", "--scale", "none"]),
+    "identity-output-cross-entropy": ("binary", ["--target", "label", "--hidden", "2", "--output", "identity",
+                                             "--loss", "cross-entropy", "--task", "binary", "--epochs", "2"]),
     "sigmoid-squared": ("binary", ["--target", "label", "--hidden", "2", "--output", "sigmoid", "--loss", "squared",
                                    "--epochs", "2", "--batch-size", "2"]),
 }

@@ -99,7 +99,12 @@ def output_delta(loss: str, act: Activation, z: str, y: str, t: str, y_range: st
     if loss == "cross-entropy":
         if act.name == "sigmoid" and act.steepness != 1.0:
             return f"={number(act.steepness)}*({y}-{t})"
-        return f"={y}-{t}"
+        if act.name in ("sigmoid", "softmax"):
+            return f"={y}-{t}"
+        slope = (f"(-{t}/MAX({y},{CLIP})*IF({y}>{CLIP},1,0)"
+                 f"+(1-{t})/MAX(1-{y},{CLIP})*IF(1-{y}>{CLIP},1,0))")
+        factor = derivative(act, z, y)
+        return f"={slope}" if factor == "1" else f"={factor}*{slope}"
     if act.name == "softmax":
         return f"={y}*(({y}-{t})-SUMPRODUCT({y_range}-{t_range},{y_range}))"
     if act.name == "identity":

@@ -129,17 +129,20 @@ def output_delta(loss: str, output: Activation, z: np.ndarray, y: np.ndarray, t:
     if loss == "cross-entropy":
         if output.name == "sigmoid":
             return output.steepness * g
-        return g
+        if output.name == "softmax":
+            return g
+        # any other output: the chain rule through the clipped logarithms (a clipped term has slope 0)
+        slope = -t / np.maximum(y, PROBABILITY_CLIP) * (y > PROBABILITY_CLIP) + \
+            (1.0 - t) / np.maximum(1.0 - y, PROBABILITY_CLIP) * (1.0 - y > PROBABILITY_CLIP)
+        return derivative(output, z, y) * slope
     if output.name == "softmax":
         return y * (g - np.sum(g * y, axis=1, keepdims=True))
     return derivative(output, z, y) * g
 
 
 def check_pair(loss: str, output: Activation) -> None:
-    """Refuse loss/output pairs that have no meaning (cross-entropy needs probabilities)."""
+    """Any output activation goes with either loss; only the loss name is checked. (Cross-entropy on
+    outputs that are not probabilities is defined through the clip: outside (clip, 1 - clip) a term is
+    constant.)"""
     if loss not in LOSSES:
         raise ModelFileError(f"unknown loss {loss!r}; expected one of {', '.join(LOSSES)}")
-    if loss == "cross-entropy" and output.name not in ("sigmoid", "softmax"):
-        raise ModelFileError(
-            f"cross-entropy needs probabilities: use sigmoid or softmax outputs, not {output.name!r}"
-        )
