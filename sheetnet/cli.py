@@ -299,7 +299,8 @@ def cmd_build(args: argparse.Namespace) -> int:
         print("\n".join(summary_lines(outcome)))
         spec, inputs = from_fit(outcome, table, settings, options)
         notes = []
-    result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells)
+    result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells,
+                            progress=Progress(1, "writing", quiet=args.quiet))
     for note in notes:
         print(f"note: {note}")
     record = "" if result.layout.record is None else f", training record of {result.layout.record.nrows:,} rows"

@@ -158,16 +158,22 @@ def check_size(layout: BookLayout, max_cells: int) -> int:
 
 
 def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool = False,
-                   max_cells: int = DEFAULT_MAX_CELLS) -> BuildResult:
-    """Lay out, compute the reference numbers, check the size, write atomically."""
+                   max_cells: int = DEFAULT_MAX_CELLS, progress=None) -> BuildResult:
+    """Lay out, compute the reference numbers, check the size, write atomically.
+
+    ``progress`` (optional, e.g. a :class:`sheetnet.progress.Progress`) gets a ``total`` (the estimated
+    formula cells) and is called with the number written so far."""
     layout = build_layout(spec)
-    check_size(layout, max_cells)
+    estimate = check_size(layout, max_cells)
+    if progress is not None:
+        progress.total = max(estimate, 1)
     numbers = compute(spec, inputs)
     counted: list[int] = []
 
     def write(tmp: Path) -> None:
         with paused_gc():
-            counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, inputs, sheets, fp)))
+            counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, inputs, sheets, fp),
+                                      progress))
 
     write_atomic(Path(path), write, force=force)
     return BuildResult(path=Path(path), formula_cells=counted[0], layout=layout)

@@ -214,7 +214,7 @@ def _define_names(book, names: dict) -> None:
             raise WorkbookFormatError(f"internal: defined name {name!r} was refused")
 
 
-def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with) -> int:
+def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with, progress=None) -> int:
     """Write every sheet; ``describe_with(fingerprints, sheet names)`` gives the layout description
     text once every cell is written. Returns the number of formula cells."""
     book = xlsxwriter.Workbook(str(path), {"constant_memory": True, "in_memory": False,
@@ -225,7 +225,7 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with) 
     book.set_calc_mode("auto")
     formats = _formats(book)
     names = layout.defined_names()
-    tally = Tally()
+    tally = Tally(progress)
     spec = layout.spec
     wide = min(40, max(14, 2 + max(len(n) for n in (*spec.inputs, *spec.outputs, *spec.target))))
     sheets = [(L.PARAMETERS, plan.parameter_entries, (22, wide), None, False),
@@ -251,6 +251,8 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with) 
         _define_names(book, names)
         book.get_worksheet_by_name(L.GUIDE).activate()
         book.close()
+    if progress is not None:
+        progress(progress.total)
     return tally.formulas
 
 
@@ -267,9 +269,10 @@ def _width(layout: BookLayout, sheet: str) -> int:
 class Tally:
     """Counts formula cells and fingerprints formulas and inputs as entries stream past."""
 
-    def __init__(self) -> None:
+    def __init__(self, progress=None) -> None:
         self.formulas = 0
         self.fingerprints = Fingerprints()
+        self.progress = progress
 
     def stream(self, sheet: str, entries: Iterable[Entry]) -> Iterator[Entry]:
         batch: list[Entry] = []
@@ -280,6 +283,8 @@ class Tally:
             if len(batch) >= 4096:
                 self.fingerprints.add_all(sheet, batch)
                 batch = []
+                if self.progress is not None:
+                    self.progress(min(self.formulas, self.progress.total))
             yield entry
         self.fingerprints.add_all(sheet, batch)
 
