@@ -233,3 +233,14 @@ def test_edits_survive_a_libreoffice_round_trip(book, tmp_path, run_cli):
     assert _cells(report, "input_edits") == {weight}
     assert _cells(report, "formula_edits") == {a_cell}
     assert not report["structural"]
+
+
+def test_added_content_and_changed_labels_are_structural(book, tmp_path, run_cli):
+    def change(wb):
+        wb["Calculator"]["H30"].value = "note from the reviewer"
+        wb["Parameters"]["A1"].value = "Our parameters"
+
+    code, report, _ = _audit(run_cli, _edit(book, tmp_path / "added.xlsx", change))
+    assert code == 3
+    assert _cells(report, "structural") == {("Calculator", "H30"), ("Parameters", "A1")}
+    assert not report["input_edits"] and not report["formula_edits"]

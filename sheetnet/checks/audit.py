@@ -359,8 +359,13 @@ def check_formulas(report: AuditReport, book: Workbook, layout: BookLayout, numb
     for sheet, entry in expected_entries(layout, numbers):
         pos = (entry.row, entry.col)
         where = mapping.get(sheet)
-        if entry.role != "formula" or where is None or _in_shift(sheet, entry.row, shifted):
-            expected_cells.add((sheet, pos))
+        expected_cells.add((sheet, pos))
+        if where is None or _in_shift(sheet, entry.row, shifted):
+            continue
+        if entry.role in ("title", "text", "header", "label"):
+            _check_label(report, book.sheets[where], where, pos, entry.content)
+            continue
+        if entry.role != "formula":
             continue
         expected_cells.add((sheet, pos))
         expected = entry.content
@@ -378,13 +383,29 @@ def check_formulas(report: AuditReport, book: Workbook, layout: BookLayout, numb
             kind = "structural" if "#REF!" in found.upper() else "formula_edits"
             report.add(Finding(where, a1(*pos), kind, expected, "=" + found, note))
     for sheet, where in mapping.items():
-        if sheet == L.LAYOUT:
+        if sheet in (L.LAYOUT, L.GUIDE):
             continue
-        for pos, formula in book.sheets[where].formulas.items():
-            if (sheet, pos) not in expected_cells and not _in_shift(sheet, pos[0], shifted):
-                report.add(Finding(where, a1(*pos), "formula_edits", None, "=" + formula,
+        cells = book.sheets[where]
+        for pos in sorted(set(cells.formulas) | set(cells.values)):
+            if (sheet, pos) in expected_cells or _in_shift(sheet, pos[0], shifted):
+                continue
+            if pos in cells.formulas:
+                report.add(Finding(where, a1(*pos), "formula_edits", None, "=" + cells.formulas[pos],
                                    "a formula where sheetnet wrote none"))
+            elif cells.values[pos] not in (None, ""):
+                report.add(Finding(where, a1(*pos), "structural", None, _plain(cells.values[pos]),
+                                   "content added where sheetnet wrote nothing"))
     return expected_cells
+
+
+def _check_label(report: AuditReport, cells: SheetCells, where: str, pos, text) -> None:
+    """Headers, labels and titles: changed wording is reported (it can mislead a reader)."""
+    found = cells.values.get(pos)
+    if pos in cells.formulas:
+        report.add(Finding(where, a1(*pos), "formula_edits", text, "=" + cells.formulas[pos],
+                           "a formula typed over a label"))
+    elif not _same(found, float(text) if isinstance(text, int) else text):
+        report.add(Finding(where, a1(*pos), "structural", text, _plain(found), "a label or header was changed"))
 
 
 # ---------------------------------------------------------------- values
