@@ -48,6 +48,9 @@ def _columns(text: str) -> tuple[str, ...]:
     names = tuple(part.strip() for part in text.split(","))
     if not all(names):
         raise argparse.ArgumentTypeError(f"empty column name in {text!r}")
+    twice = sorted({n for n in names if names.count(n) > 1})
+    if twice:
+        raise argparse.ArgumentTypeError(f"column {twice[0]!r} is named twice in {text!r}")
     return names
 
 

@@ -67,6 +67,8 @@ BAD_USAGE = {
     "unknown flag": (["--target", "label", "--bogus"], 2, "--bogus"),
     "step cannot train": (["--target", "label", "--init", "STEP"], 2, "step"),
     "unknown loss": (["--target", "label", "--loss", "hinge"], 2, "--loss"),
+    "target named twice": (["--target", "label,label"], 2, "named twice"),
+    "input is the target": (["--target", "label", "--inputs", "a,label"], 2, "both an input and a target"),
 }
 
 

@@ -146,6 +146,9 @@ def fit(table: dataio.Table, target: tuple[str, ...], settings: TrainSettings, a
     if not target:
         raise UsageError("no target column given (--target)")
     table.require(target, "target")
+    both = [c for c in (inputs or ()) if c in target]
+    if both:
+        raise UsageError(f"column {both[0]!r} is both an input and a target")
     if start is None:
         model, encoded = skeleton(table, target, inputs, arch, settings.seed)
     else:
