@@ -212,3 +212,16 @@ def test_shaped_record_rows_equal_rows_built_one_by_one(config, tmp_path, run_cl
     for a, b in zip(shaped, one_by_one, strict=True):
         assert (a.row, a.col, a.role, a.content) == (b.row, b.col, b.role, b.content)
         assert a.value == b.value
+
+
+def test_hand_written_model_without_target_key_gets_a_training_record(tmp_path, run_cli):
+    model = {"format": "sheetnet-model", "version": 1, "inputs": ["a", "b"], "outputs": ["label"], "task": "binary",
+             "classes": ["no", "yes"],
+             "layers": [{"weights": [[0.5, -0.3]], "bias": [0.1], "activation": "sigmoid"}], "loss": "squared"}
+    (tmp_path / "m.json").write_text(json.dumps(model))
+    header, rows = DATASETS["binary"]
+    data = write_csv(tmp_path / "d.csv", header, rows)
+    out = tmp_path / "b.xlsx"
+    code, stdout, err = run_cli("build", "--model", tmp_path / "m.json", data, "--epochs", "2", "-o", out)
+    assert code == 0 and "training record of 12 rows" in stdout, err
+    assert "Training record" in openpyxl.load_workbook(out).sheetnames

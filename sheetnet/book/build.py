@@ -3,7 +3,7 @@ written .xlsx. Size limits are checked before anything is written."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -199,6 +199,10 @@ def from_model(model: Model, table: dataio.Table | None, settings: TrainSettings
     _check_options(options)
     notes: list[str] = []
     record = None
+    if table is not None and not model.target:
+        others = [c for c in table.header if c not in model.inputs]
+        if len(others) == 1:  # a hand-written model without "target": the one other column is it
+            model = replace(model, target=(others[0],))
     kind = target_kind(model, table)
     if table is not None and kind != "none" and settings is not None:
         untrainable = [layer.activation.name for layer in model.layers if layer.activation.name == "step"]
