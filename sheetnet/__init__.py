@@ -7,7 +7,9 @@ delta, gradient and update is a cell formula, re-evaluate it independently, and 
 from sheetnet.api import (
     audit_workbook,
     build_workbook,
+    compare_learning_rates,
     extract_model,
+    report,
     score,
     settings,
     train,
@@ -27,5 +29,5 @@ except ImportError:  # pragma: no cover - depends on the environment
     SheetNetClassifier = SheetNetRegressor = None
 
 __all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
-           "TrainSettings", "__version__", "audit_workbook", "build_workbook", "extract_model", "from_sklearn",
-           "load_model", "score", "settings", "train", "verify_workbook"]
+           "TrainSettings", "__version__", "audit_workbook", "build_workbook", "compare_learning_rates",
+           "extract_model", "from_sklearn", "load_model", "report", "score", "settings", "train", "verify_workbook"]

@@ -112,3 +112,23 @@ def extract_model(path, after_training: bool = False) -> Model:
     from sheetnet.checks.extract import extract
 
     return extract(path, after_training=after_training)[0]
+
+
+def report(source, out, force: bool = False) -> Path:
+    """The HTML report of a model file or a workbook, like ``sheetnet report``."""
+    from sheetnet.htmlreport import write_report
+
+    return write_report(source, out, force=force)
+
+
+def compare_learning_rates(data, target, rates, holdout: float | str = "auto", **train_options):
+    """Runs at several learning rates from the same start, like ``sheetnet rates`` (a list of RateRun)."""
+    from sheetnet.rates import compare_rates
+
+    run = settings(**{k: v for k, v in train_options.items() if k in SETTINGS})
+    arch_options = {k: v for k, v in train_options.items() if k not in SETTINGS}
+    arch = Architecture(hidden=tuple(arch_options.get("hidden", (4,))),
+                        activation=Activation(arch_options.get("activation", "sigmoid")),
+                        output=arch_options.get("output"), loss=arch_options.get("loss"),
+                        task=arch_options.get("task"), scale=arch_options.get("scale", "standard"))
+    return compare_rates(as_table(data), _columns(target), list(rates), run, arch, holdout)

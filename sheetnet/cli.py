@@ -386,58 +386,12 @@ def cmd_extract(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
-    from sheetnet.htmlreport import page, write_html
+    from sheetnet.htmlreport import write_report
 
     check_output(args.out, args.force, inputs=[args.source])
-    if args.source.suffix.lower() == ".json":
-        title, sections = f"sheetnet report: {args.source.name}", _model_report(args.source)
-    else:
-        title, sections = f"sheetnet report: {args.source.name}", _book_report(args.source)
-    write_html(args.out, page(title, sections), args.force)
+    write_report(args.source, args.out, force=args.force)
     print(f"report written to {args.out}")
     return 0
-
-
-def _model_report(path: Path):
-    from sheetnet.htmlreport import model_sections
-
-    return model_sections(load_model(path))
-
-
-def _book_report(path: Path):
-    from sheetnet.book.numbers import compute
-    from sheetnet.book.read import read_inputs, read_layout
-    from sheetnet.book.xlsxread import read_workbook
-    from sheetnet.htmlreport import Section, loss_plot, model_sections
-    from sheetnet.net.metrics import evaluate
-
-    book = read_workbook(path)
-    layout, _ = read_layout(book)
-    inputs = read_inputs(book, layout)
-    spec = layout.spec
-    model = inputs.model(spec)
-    numbers = compute(spec, inputs)
-    x = np.array([row[: len(spec.inputs)] for row in inputs.data], dtype=float) if inputs.data else None
-    labels = None
-    if numbers.scoring.t is not None and spec.is_classification:
-        codes = np.argmax(numbers.scoring.t, axis=1) if spec.task == "multiclass" else \
-            (numbers.scoring.t[:, 0] >= 0.5).astype(int)
-        names = spec.classes or ("0", "1")
-        labels = [str(names[c]) for c in codes]
-    training = {}
-    if numbers.record is not None:
-        training["epoch_loss"] = numbers.record.epoch_loss.tolist()
-    held = np.array([s == "holdout" for s in spec.sets]) if spec.sets else np.array([], dtype=bool)
-    if numbers.scoring.t is not None and held.any():
-        training["holdout_metrics"] = evaluate(model, x[held], numbers.scoring.t[held], inputs.threshold).to_dict()
-    sections = model_sections(replace(model, training=training), x, labels)
-    result = verify(path)
-    sections.append(Section("Verification", verify_lines(result), []))
-    if numbers.record is not None:
-        sections.insert(1, Section("Training record", ["Mean loss per epoch of the record, as the reference "
-                                                       "trainer replays it from the workbook's inputs."],
-                                   [loss_plot({"record": numbers.record.epoch_loss.tolist()}, "training record")]))
-    return sections
 
 
 def cmd_rates(args: argparse.Namespace) -> int:

@@ -166,3 +166,49 @@ def write_html(path: Path, text: str, force: bool) -> Path:
     from sheetnet.files import write_text_atomic
 
     return write_text_atomic(Path(path), text, force=force)
+
+
+def book_sections(path: Path) -> list[Section]:
+    """A workbook's report: its model, the training record's loss, holdout metrics, and its verification."""
+    from dataclasses import replace
+
+    from sheetnet.book.numbers import compute
+    from sheetnet.book.read import read_inputs, read_layout
+    from sheetnet.book.xlsxread import read_workbook
+    from sheetnet.checks.verify import verify
+    from sheetnet.net.metrics import evaluate
+    from sheetnet.report import verify_lines
+
+    book = read_workbook(path)
+    layout, _ = read_layout(book)
+    inputs = read_inputs(book, layout)
+    spec = layout.spec
+    model = inputs.model(spec)
+    numbers = compute(spec, inputs)
+    x = np.array([row[: len(spec.inputs)] for row in inputs.data], dtype=float) if inputs.data else None
+    labels = None
+    if numbers.scoring.t is not None and spec.is_classification:
+        codes = np.argmax(numbers.scoring.t, axis=1) if spec.task == "multiclass" else \
+            (numbers.scoring.t[:, 0] >= 0.5).astype(int)
+        names = spec.classes or ("0", "1")
+        labels = [str(names[c]) for c in codes]
+    training = {}
+    held = np.array([s == "holdout" for s in spec.sets], dtype=bool)
+    if numbers.scoring.t is not None and held.any():
+        training["holdout_metrics"] = evaluate(model, x[held], numbers.scoring.t[held], inputs.threshold).to_dict()
+    sections = model_sections(replace(model, training=training), x, labels)
+    if numbers.record is not None:
+        sections.insert(1, Section("Training record", ["Mean loss per epoch of the record, as the reference "
+                                                       "trainer replays it from the workbook's inputs."],
+                                   [loss_plot({"record": numbers.record.epoch_loss.tolist()}, "training record")]))
+    sections.append(Section("Verification", verify_lines(verify(path)), []))
+    return sections
+
+
+def write_report(source: str | Path, out: str | Path, force: bool = False) -> Path:
+    """The HTML report of a model file (.json) or a workbook (.xlsx)."""
+    from sheetnet.net.model import load_model
+
+    source = Path(source)
+    sections = model_sections(load_model(source)) if source.suffix.lower() == ".json" else book_sections(source)
+    return write_html(Path(out), page(f"sheetnet report: {source.name}", sections), force)

@@ -70,3 +70,19 @@ def test_rates_name_the_best_and_the_failing_rates(tmp_path, run_cli):
     assert any(n.startswith("xl/charts/chart") for n in names)  # a native chart
     sheet = openpyxl.load_workbook(tmp_path / "rates.xlsx")["Learning rates"]
     assert sheet["B3"].value == "lr 0.0001"
+
+
+def test_python_api_reports_and_compares_rates(tmp_path):
+    import pandas as pd
+
+    import sheetnet
+
+    rng = np.random.default_rng(6)
+    x = rng.normal(size=(60, 2))
+    frame = pd.DataFrame({"u": x[:, 0], "v": x[:, 1], "label": np.where(x[:, 0] > x[:, 1], "a", "b")})
+    runs = sheetnet.compare_learning_rates(frame, "label", [0.01, 0.5], hidden=(3,), epochs=10, batch_size=8)
+    assert [r.rate for r in runs] == [0.01, 0.5] and all(r.curve for r in runs)
+    model = sheetnet.train(frame, "label", hidden=(3,), epochs=10).model
+    model.save(tmp_path / "m.json")
+    page = sheetnet.report(tmp_path / "m.json", tmp_path / "r.html")
+    assert _images(page)
