@@ -9,7 +9,7 @@ from sheetnet.api import (
     build_workbook,
     compare_learning_rates,
     extract_model,
-    report,
+    report_html,
     score,
     settings,
     train,
@@ -30,4 +30,4 @@ except ImportError:  # pragma: no cover - depends on the environment
 
 __all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
            "TrainSettings", "__version__", "audit_workbook", "build_workbook", "compare_learning_rates",
-           "extract_model", "from_sklearn", "load_model", "report", "score", "settings", "train", "verify_workbook"]
+           "extract_model", "from_sklearn", "load_model", "report_html", "score", "settings", "train", "verify_workbook"]

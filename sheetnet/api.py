@@ -114,7 +114,7 @@ def extract_model(path, after_training: bool = False) -> Model:
     return extract(path, after_training=after_training)[0]
 
 
-def report(source, out, force: bool = False) -> Path:
+def report_html(source, out, force: bool = False) -> Path:
     """The HTML report of a model file or a workbook, like ``sheetnet report``."""
     from sheetnet.htmlreport import write_report
 

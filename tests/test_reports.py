@@ -84,5 +84,5 @@ def test_python_api_reports_and_compares_rates(tmp_path):
     assert [r.rate for r in runs] == [0.01, 0.5] and all(r.curve for r in runs)
     model = sheetnet.train(frame, "label", hidden=(3,), epochs=10).model
     model.save(tmp_path / "m.json")
-    page = sheetnet.report(tmp_path / "m.json", tmp_path / "r.html")
+    page = sheetnet.report_html(tmp_path / "m.json", tmp_path / "r.html")
     assert _images(page)
