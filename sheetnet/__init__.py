@@ -30,4 +30,5 @@ except ImportError:  # pragma: no cover - depends on the environment
 
 __all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
            "TrainSettings", "__version__", "audit_workbook", "build_workbook", "compare_learning_rates",
-           "extract_model", "from_sklearn", "load_model", "report_html", "score", "settings", "train", "verify_workbook"]
+           "extract_model", "from_sklearn", "load_model", "report_html", "score", "settings", "train",
+           "verify_workbook"]
