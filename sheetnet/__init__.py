@@ -23,10 +23,17 @@ from sheetnet.net.train import TrainSettings
 
 __version__ = "0.1.0"
 
-try:  # the scikit-learn style estimators need scikit-learn (pip install 'sheetnet[test]' brings it)
-    from sheetnet.estimator import SheetNetClassifier, SheetNetRegressor
-except ImportError:  # pragma: no cover - depends on the environment
-    SheetNetClassifier = SheetNetRegressor = None
+_ESTIMATORS = ("SheetNetClassifier", "SheetNetRegressor")
+
+
+def __getattr__(name: str):
+    """The scikit-learn style estimators load scikit-learn, which takes about a second: they are imported
+    on first use, so the command line and the rest of the API start without it (PEP 562)."""
+    if name in _ESTIMATORS:
+        from sheetnet import estimator
+
+        return getattr(estimator, name)
+    raise AttributeError(f"module 'sheetnet' has no attribute {name!r}")
 
 __all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
            "TrainSettings", "__version__", "audit_workbook", "build_workbook", "compare_learning_rates",
