@@ -1,5 +1,5 @@
 """``python -m sheetnet`` runs the command line."""
 
-from sheetnet.cli import main
+from sheetnet.cli import run
 
-raise SystemExit(main())
+run()
