@@ -244,3 +244,15 @@ def test_added_content_and_changed_labels_are_structural(book, tmp_path, run_cli
     assert code == 3
     assert _cells(report, "structural") == {("Calculator", "H30"), ("Parameters", "A1")}
     assert not report["input_edits"] and not report["formula_edits"]
+
+
+@pytest.mark.parametrize(("change", "cell", "words"), [
+    (lambda wb: wb["Parameters"].insert_rows(10), ("Parameters", "A10"), "row(s) inserted"),
+    (lambda wb: wb["Calculator"].insert_cols(3), ("Calculator", "C1"), "column(s) inserted"),
+])
+def test_rows_and_columns_inserted_on_block_sheets_are_structural(book, tmp_path, run_cli, change, cell, words):
+    code, report, out = _audit(run_cli, _edit(book, tmp_path / "moved.xlsx", change))
+    assert code == 3, out
+    assert cell in _cells(report, "structural"), report["structural"]
+    assert any(words in f["note"] for f in report["structural"])
+    assert not report["input_edits"]  # the moved block is not misread as edited inputs

@@ -173,6 +173,49 @@ def find_shifts(report: AuditReport, book: Workbook, layout: BookLayout, mapping
     return shifted
 
 
+def find_block_shifts(report: AuditReport, book: Workbook, layout: BookLayout, numbers,
+                      mapping: dict[str, str]) -> dict[str, int]:
+    """Inserted or deleted rows or columns on the sheets of labelled blocks (Parameters, Calculator,
+    Training setup), found from where the labels sheetnet wrote have moved to."""
+    texts: dict[str, list[tuple[tuple[int, int], str]]] = {}
+    for sheet, entry in expected_entries(layout, numbers):
+        if sheet in (L.PARAMETERS, L.CALCULATOR, L.SETUP) and entry.role in ("title", "header", "label") \
+                and isinstance(entry.content, str):
+            texts.setdefault(sheet, []).append(((entry.row, entry.col), entry.content))
+    shifted = {}
+    for sheet, labels in texts.items():
+        where = mapping.get(sheet)
+        if where is None:
+            continue
+        moved = _label_shift(report, where, book.sheets[where].values, sorted(labels))
+        if moved is not None:
+            shifted[sheet] = moved
+    return shifted
+
+
+def _label_shift(report: AuditReport, sheet: str, values: dict, labels: list) -> int | None:
+    """The first label out of place, and the row or column move that puts the labels after it back."""
+    for n, ((row, col), text) in enumerate(labels):
+        if values.get((row, col)) == text:
+            continue
+        for dr, dc in ((1, 0), (-1, 0), (0, 1), (0, -1), (2, 0), (0, 2)):
+            # a row move shifts every label below; a column move every label to the right
+            rest = labels[n:] if dr else [((r, c), t) for (r, c), t in labels if c >= col]
+            hits = sum(values.get((r + dr, c + dc)) == t for (r, c), t in rest)
+            if hits >= 0.6 * len(rest):
+                if dr:
+                    what = f"{abs(dr)} row(s) {'inserted' if dr > 0 else 'deleted'} at row {row + 1}"
+                    cell = a1(row, 0)
+                else:
+                    what = f"{abs(dc)} column(s) {'inserted' if dc > 0 else 'deleted'} at column " \
+                           f"{column_letters(col)}"
+                    cell = a1(0, col)
+                report.add(Finding(sheet, cell, "structural", text, values.get((row, col)), f"{what} of {sheet}"))
+                return row if dr else 0
+        return None
+    return None
+
+
 def _header_shift(report: AuditReport, sheet: str, table: Table, cells: dict) -> int | None:
     headers = [(table.col(c.key), c.header) for c in table.columns]
     row = table.header_row
@@ -498,6 +541,7 @@ def _audit(path: Path, against: Path | None) -> AuditReport:
         report.sheet_map = mapping
         check_names(report, book, layout, mapping)
         shifted = find_shifts(report, book, layout, mapping)
+        shifted.update(find_block_shifts(report, book, layout, numbers, mapping))
         check_merges(report, book, layout, mapping)
         check_risks(report, book)
         check_inputs(report, book, layout, original, mapping, shifted)
