@@ -24,7 +24,14 @@ from sheetnet.checks.audit import audit
 from sheetnet.checks.extract import extract
 from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, VERIFY_STAGES, verify
 from sheetnet.demo import DEMO_FLAGS, demo_csv_text
-from sheetnet.errors import CannotVerifyError, EvaluationError, SheetNetError, UsageError, WorkbookFormatError
+from sheetnet.errors import (
+    CannotVerifyError,
+    EvaluationError,
+    SheetNetError,
+    TrainingError,
+    UsageError,
+    WorkbookFormatError,
+)
 from sheetnet.files import check_output, write_atomic, write_text_atomic
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
@@ -302,8 +309,16 @@ def cmd_build(args: argparse.Namespace) -> int:
         print("\n".join(summary_lines(outcome)))
         spec, inputs = from_fit(outcome, table, settings, options)
         notes = []
-    result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells,
-                            progress=Progress(1, "writing", quiet=args.quiet))
+    try:
+        result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells,
+                                progress=Progress(1, "writing", quiet=args.quiet))
+    except TrainingError as exc:
+        if not args.model or spec.record is None:
+            raise
+        # a given model's scores still belong in a workbook when replaying training from it diverges
+        notes.append(f"no training record: {exc} (from the model's weights at learning rate {args.lr:g})")
+        result = write_workbook(replace(spec, record=None), inputs, args.out, force=args.force,
+                                max_cells=args.max_cells, progress=Progress(1, "writing", quiet=args.quiet))
     for note in notes:
         print(f"note: {note}")
     record = "" if result.layout.record is None else f", training record of {result.layout.record.nrows:,} rows"

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -149,3 +150,13 @@ def test_python_dash_m_runs_without_traceback(tmp_path):
                              "-o", str(tmp_path / "m.json")], capture_output=True, text=True, check=False)
     assert result.returncode == 1 and result.stderr.startswith("sheetnet: error:")
     assert "Traceback" not in result.stderr
+
+
+def test_divergence_is_one_line_naming_the_epoch(tmp_path, run_cli):
+    rows = [[i, i * 1000.0] for i in range(20)]
+    data = write_csv(tmp_path / "big.csv", ["a", "y"], rows)
+    code, out, err = run_cli("train", data, "--target", "y", "--scale", "none", "--lr", "10", "--epochs", "50",
+                             "-o", tmp_path / "m.json")
+    assert code == 1 and "diverged" in err and re.search(r"in epoch [0-9]+", err)
+    assert len(err.strip().splitlines()) == 1 and "Warning" not in err
+    assert not (tmp_path / "m.json").exists()

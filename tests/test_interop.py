@@ -69,8 +69,9 @@ def test_sklearn_model_workbook_scores_match_the_estimator(case, tmp_path, run_c
     csv = tmp_path / "d.csv"
     frame.rename(columns={"target": "y"}).to_csv(csv, index=False)
     book = tmp_path / "b.xlsx"
-    code, _, err = run_cli("build", "--model", tmp_path / "m.json", csv, "--epochs", "1", "--lr", "1e-6", "-o", book)
-    assert code == 0, err
+    code, out, err = run_cli("build", "--model", tmp_path / "m.json", csv, "--epochs", "1", "-o", book)
+    assert code == 0, err  # the default learning rate may diverge on large regression targets: then no record
+    assert "training record of" in out or "no training record" in out
     report = verify(book)  # the embedded engine recomputes every cell from the formulas as written
     assert report.ok, report.comparisons[0].mismatches[:3]
     from tests.bookcheck import cached_values

@@ -188,6 +188,12 @@ def train(model: Model, x: np.ndarray, t: np.ndarray, settings: TrainSettings,
     check_trainable(model)
     if schedule is None:
         schedule = epoch_batches(len(x), settings)
+    with np.errstate(over="ignore", invalid="ignore"):  # divergence is reported in words, by epoch
+        return _train(model, x, t, settings, trace_epochs, progress, schedule)
+
+
+def _train(model: Model, x: np.ndarray, t: np.ndarray, settings: TrainSettings, trace_epochs: int,
+           progress: Callable[[int], None] | None, schedule: Iterable[list[np.ndarray]]) -> TrainResult:
     acts = [layer.activation for layer in model.layers]
     weights = [layer.weights.copy() for layer in model.layers]
     biases = [layer.bias.copy() for layer in model.layers]
