@@ -155,7 +155,7 @@ def test_python_dash_m_runs_without_traceback(tmp_path):
 def test_divergence_is_one_line_naming_the_epoch(tmp_path, run_cli):
     rows = [[i, i * 1000.0] for i in range(20)]
     data = write_csv(tmp_path / "big.csv", ["a", "y"], rows)
-    code, out, err = run_cli("train", data, "--target", "y", "--scale", "none", "--lr", "10", "--epochs", "50",
+    code, _out, err = run_cli("train", data, "--target", "y", "--scale", "none", "--lr", "10", "--epochs", "50",
                              "-o", tmp_path / "m.json")
     assert code == 1 and "diverged" in err and re.search(r"in epoch [0-9]+", err)
     assert len(err.strip().splitlines()) == 1 and "Warning" not in err
