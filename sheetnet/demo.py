@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import csv
 import io
-from pathlib import Path
 
 import numpy as np
 
@@ -46,9 +45,3 @@ def demo_csv_text() -> str:
     writer.writerow(HEADER)
     writer.writerows(firings())
     return out.getvalue()
-
-
-def write_demo_csv(folder: Path) -> Path:
-    path = Path(folder) / "invented_kiln_firings.csv"
-    path.write_text(demo_csv_text(), encoding="utf-8")
-    return path

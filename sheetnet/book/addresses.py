@@ -62,10 +62,6 @@ class Block:
     def cells(self) -> list[Cell]:
         return [self.cell(i, j) for i in range(self.nrows) for j in range(self.ncols)]
 
-    def contains(self, cell: Cell) -> bool:
-        return (cell.sheet == self.sheet and self.top <= cell.row <= self.bottom
-                and self.left <= cell.col <= self.right)
-
 
 @functools.lru_cache(maxsize=MAX_COLS)
 def column_letters(col: int) -> str:
