@@ -79,6 +79,18 @@ def _final_parameters(book: Path, values: dict, n_layers: int) -> list[tuple[np.
     return out
 
 
+def _assert_edit_reproduces(book: Path, tmp_path: Path, name: str, value: float, offset: tuple[int, int],
+                            trained) -> None:
+    """Edit one input cell, recalculate in LibreOffice, and compare the final block with ``trained``."""
+    edited = tmp_path / "edited" / "b.xlsx"
+    edited.parent.mkdir()
+    _set_cell(book, edited, name, value, offset=offset)
+    values = libreoffice_values(edited, tmp_path / "lo")
+    for (w, b), layer in zip(_final_parameters(edited, values, len(trained.layers)), trained.layers, strict=True):
+        np.testing.assert_allclose(w, layer.weights, atol=1e-9)
+        np.testing.assert_allclose(b, layer.bias, atol=1e-9)
+
+
 FLAGS = ["--target", "y", "--hidden", "3", "--activation", "tanh", "--epochs", "4", "--batch-size", "3", "--seed", "4"]
 
 
@@ -87,15 +99,8 @@ def test_learning_rate_edited_in_the_file_reproduces_train(tmp_path, run_cli):
     data = _numeric_csv(tmp_path)
     book = tmp_path / "b.xlsx"
     assert run_cli("build", data, *FLAGS, "-o", book)[0] == 0
-    edited = tmp_path / "edited" / "b.xlsx"
-    edited.parent.mkdir()
-    _set_cell(book, edited, "learning_rate", 0.37)
-    values = libreoffice_values(edited, tmp_path / "lo")
     assert run_cli("train", data, *FLAGS, "--lr", "0.37", "-o", tmp_path / "m.json")[0] == 0
-    model = load_model(tmp_path / "m.json")
-    for (w, b), layer in zip(_final_parameters(edited, values, 2), model.layers, strict=True):
-        np.testing.assert_allclose(w, layer.weights, atol=1e-9)
-        np.testing.assert_allclose(b, layer.bias, atol=1e-9)
+    _assert_edit_reproduces(book, tmp_path, "learning_rate", 0.37, (0, 0), load_model(tmp_path / "m.json"))
 
 
 @pytest.mark.slow
@@ -110,18 +115,11 @@ def test_initial_weight_edited_in_the_file_reproduces_train_from_that_model(tmp_
     book = tmp_path / "b.xlsx"
     code, _, err = run_cli("build", "--model", tmp_path / "m.json", data, *flags, "-o", book)
     assert code == 0, err
-    edited = tmp_path / "edited" / "b.xlsx"
-    edited.parent.mkdir()
-    _set_cell(book, edited, "init_W_1", -0.35, offset=(1, 2))
-    values = libreoffice_values(edited, tmp_path / "lo")
     model["layers"][0]["weights"][1][2] = -0.35
     (tmp_path / "m2.json").write_text(json.dumps(model))
     assert run_cli("train", data, "--target", "y", "--init", tmp_path / "m2.json", *flags,
                    "-o", tmp_path / "t.json")[0] == 0
-    trained = load_model(tmp_path / "t.json")
-    for (w, b), layer in zip(_final_parameters(edited, values, 2), trained.layers, strict=True):
-        np.testing.assert_allclose(w, layer.weights, atol=1e-9)
-        np.testing.assert_allclose(b, layer.bias, atol=1e-9)
+    _assert_edit_reproduces(book, tmp_path, "init_W_1", -0.35, (1, 2), load_model(tmp_path / "t.json"))
 
 
 @pytest.mark.slow

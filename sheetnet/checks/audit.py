@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from sheetnet.book import layout as L
-from sheetnet.book.addresses import Block, a1, column_letters, defined_name_target
+from sheetnet.book.addresses import Block, a1, column_letters, defined_name_target, parse_a1
 from sheetnet.book.describe import inputs_from_dict
 from sheetnet.book.layout import BookLayout, Table
 from sheetnet.book.read import read_inputs, read_layout
@@ -279,8 +279,6 @@ def check_merges(report: AuditReport, book: Workbook, layout: BookLayout, mappin
             continue
         for merged in book.sheets[sheet].merged:
             first, _, last = merged.partition(":")
-            from sheetnet.book.addresses import parse_a1
-
             (r0, c0), (r1, c1) = parse_a1(first), parse_a1(last or first)
             if r0 <= block.bottom and r1 >= block.top and c0 <= block.right and c1 >= block.left:
                 report.add(Finding(sheet, first, "structural", None, merged, f"merged cells {merged} cover a block"))
@@ -487,8 +485,6 @@ def check_values(report: AuditReport, book: Workbook, layout: BookLayout, mappin
 
 
 def _row_of(cell: str) -> int:
-    from sheetnet.book.addresses import parse_a1
-
     return parse_a1(cell)[0]
 
 
