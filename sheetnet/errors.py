@@ -35,6 +35,15 @@ class WorkbookFormatError(SheetNetError):
     """A workbook that cannot be read as a sheetnet workbook, or would break spreadsheet limits."""
 
 
+class DescriptionError(WorkbookFormatError):
+    """The layout description inside a workbook is damaged, altered or disagrees with the workbook.
+    ``problems`` lists every problem found (``sheetnet.book.jsoncheck.Problem``)."""
+
+    def __init__(self, message: str, problems: list) -> None:
+        super().__init__(message)
+        self.problems = problems
+
+
 class CannotVerifyError(SheetNetError):
     """A workbook that cannot be verified at all (not a sheetnet workbook, unreadable, no engine)."""
 

@@ -45,6 +45,10 @@ def verify_lines(report: VerifyReport) -> list[str]:
     lines = [f"verifying {report.path}"]
     for comparison in report.comparisons:
         lines += comparison_lines(comparison)
+    if report.description_problems:
+        lines.append(f"note: the layout description has {len(report.description_problems)} problem(s) in parts "
+                     f"verification does not use (first: {report.description_problems[0]}); 'sheetnet audit' "
+                     "lists them")
     if report.ok:
         cells = report.comparisons[0].cells_compared
         lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer")
@@ -53,7 +57,8 @@ def verify_lines(report: VerifyReport) -> list[str]:
     return lines
 
 
-AUDIT_TITLES = {"structural": "Structure", "formula_edits": "Formula edits", "value_mismatches": "Value mismatches",
+AUDIT_TITLES = {"description": "Layout description", "signature": "Signature", "structural": "Structure",
+                "formula_edits": "Formula edits", "value_mismatches": "Value mismatches",
                 "input_edits": "Input edits", "risks": "Risks"}
 
 

@@ -166,15 +166,15 @@ def test_cell_cap_refuses_and_writes_nothing(tmp_path, run_cli):
 
 
 def test_layout_description_is_stored(tmp_path, run_cli):
-    from sheetnet.book.describe import parse_description, spec_from_dict
+    from sheetnet.book.schema import read_spec
 
     book = build(tmp_path, run_cli, *CONFIGS["binary-ce-batch1"])
     sheet = openpyxl.load_workbook(book)["sheetnet_layout"]
     assert sheet.sheet_state == "hidden"
     text = "".join(c.value for (c,) in sheet.iter_rows(min_row=2, max_col=1) if c.value)
-    data = parse_description(text)
-    spec = spec_from_dict(data["spec"])
-    assert spec.units == (2, 1) and spec.record.n_rows == 12 and data["fingerprints"]["formulas"]
+    data = json.loads(text)
+    spec, problems = read_spec(data["spec"])
+    assert not problems and spec.units == (2, 1) and spec.record.n_rows == 12 and data["fingerprints"]["formulas"]
 
 
 def test_no_macros_links_or_volatile_functions(tmp_path, run_cli):

@@ -130,3 +130,23 @@ def cell_name(cell: Cell) -> str:
 def defined_name_target(block: Block) -> str:
     """The ``refers to`` text of a workbook-scoped defined name (always absolute, with sheet)."""
     return "=" + range_ref(block, here="", absolute=True)
+
+
+_SHEET_PREFIX = re.compile(r"^(?:'((?:[^']|'')+)'|([^'!]+))!(.+)$")
+
+
+def parse_range(text: str) -> Block | None:
+    """A defined name's target (``Sheet!$B$2:$D$4``, ``'My sheet'!$B$2``) as a Block; None when it
+    is not one rectangle on one sheet (e.g. ``#REF!``, a constant or a formula)."""
+    match = _SHEET_PREFIX.match(text.strip().lstrip("="))
+    if match is None:
+        return None
+    sheet = match.group(1).replace("''", "'") if match.group(1) is not None else match.group(2)
+    first, _, last = match.group(3).partition(":")
+    try:
+        (r0, c0), (r1, c1) = parse_a1(first), parse_a1(last or first)
+    except ValueError:
+        return None
+    if not (0 <= r0 <= r1 < MAX_ROWS and 0 <= c0 <= c1 < MAX_COLS):
+        return None
+    return Block(sheet, r0, c0, r1 - r0 + 1, c1 - c0 + 1)

@@ -11,13 +11,8 @@ import hashlib
 import json
 from typing import Any
 
-import numpy as np
-
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
-from sheetnet.errors import WorkbookFormatError
-from sheetnet.net.activations import Activation
-from sheetnet.net.model import Layer
+from sheetnet.book.spec import BookInputs, BookSpec
 
 FORMAT = "sheetnet-layout"
 VERSION = 1
@@ -57,23 +52,6 @@ def spec_to_dict(spec: BookSpec) -> dict[str, Any]:
     }
 
 
-def spec_from_dict(data: dict[str, Any]) -> BookSpec:
-    try:
-        raw = data["record"]
-        record = None if raw is None else RecordSpec(
-            steps=tuple(tuple(int(c) for c in s) for s in raw["steps"]), epochs=tuple(int(e) for e in raw["epochs"]),
-            momentum=bool(raw["momentum"]), l2=bool(raw["l2"]))
-        return BookSpec(
-            inputs=tuple(data["inputs"]), outputs=tuple(data["outputs"]), units=tuple(int(u) for u in data["units"]),
-            activations=tuple(Activation(**a) for a in data["activations"]), loss=data["loss"], task=data["task"],
-            classes=tuple(data["classes"]), target=tuple(data["target"]), target_kind=data["target_kind"],
-            n_cases=int(data["n_cases"]), sets=tuple(data["sets"]), record=record,
-            scaling_method=data.get("scaling_method", "none"),
-            provenance=tuple(tuple(p) for p in data.get("provenance", [])))
-    except (KeyError, TypeError, ValueError) as exc:
-        raise WorkbookFormatError(f"the workbook's layout description is damaged ({exc!r})") from None
-
-
 def _layers_to_list(layers) -> list:
     return [{"weights": layer.weights.tolist(), "bias": layer.bias.tolist()} for layer in layers]
 
@@ -89,22 +67,6 @@ def inputs_to_dict(inputs: BookInputs) -> dict[str, Any]:
     }
 
 
-def inputs_from_dict(data: dict[str, Any], spec: BookSpec) -> BookInputs:
-    def layers(items) -> tuple[Layer, ...]:
-        return tuple(Layer(np.array(item["weights"], dtype=float), np.array(item["bias"], dtype=float), act)
-                     for item, act in zip(items, spec.activations, strict=True))
-
-    try:
-        return BookInputs(
-            layers=layers(data["layers"]), offset=np.array(data["offset"], dtype=float),
-            divisor=np.array(data["divisor"], dtype=float), data=tuple(tuple(row) for row in data["data"]),
-            threshold=float(data["threshold"]), calculator=np.array(data["calculator"], dtype=float),
-            learning_rate=float(data["learning_rate"]), momentum=float(data["momentum"]), l2=float(data["l2"]),
-            initial=layers(data["initial"]) if data["initial"] else ())
-    except (KeyError, TypeError, ValueError) as exc:
-        raise WorkbookFormatError(f"the workbook's record of its original inputs is damaged ({exc!r})") from None
-
-
 def describe(layout: BookLayout, inputs: BookInputs, sheets: list[str], fingerprints: Fingerprints) -> str:
     """The JSON text stored on the hidden layout sheet."""
     from sheetnet import __version__
@@ -115,15 +77,3 @@ def describe(layout: BookLayout, inputs: BookInputs, sheets: list[str], fingerpr
         "spec": spec_to_dict(layout.spec), "sheets": sheets, "names": names,
         "fingerprints": fingerprints.to_dict(), "inputs": inputs_to_dict(inputs),
     }, separators=(",", ":"), sort_keys=True)
-
-
-def parse_description(text: str) -> dict[str, Any]:
-    try:
-        data = json.loads(text)
-    except json.JSONDecodeError:
-        raise WorkbookFormatError("the workbook's layout description is not valid JSON") from None
-    if not isinstance(data, dict) or data.get("format") != FORMAT:
-        raise WorkbookFormatError("not a sheetnet workbook (no layout description)")
-    if data.get("version") != VERSION:
-        raise WorkbookFormatError(f"layout description version {data.get('version')!r} is not supported")
-    return data

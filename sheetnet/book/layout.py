@@ -130,6 +130,13 @@ class BookLayout:
     step_rows: tuple[tuple[int, int], ...]
     epochs: Table | None
 
+    def sheet_names(self) -> list[str]:
+        """Every sheet of the workbook, in order: the one list the writer, verify and audit use."""
+        names = [GUIDE, PARAMETERS, CALCULATOR] + ([SCORING] if self.spec.n_cases else [])
+        if self.record is not None:
+            names += [SETUP, RECORD, EPOCHS]
+        return [*names, LAYOUT]
+
     def defined_names(self) -> dict[str, Block]:
         """Workbook-scoped names (never sheet-scoped: not every engine resolves those)."""
         names: dict[str, Block] = {"scale_offset": self.offset, "scale_divisor": self.divisor}

@@ -6,27 +6,19 @@ from __future__ import annotations
 import numpy as np
 
 from sheetnet.book.addresses import Block, Cell, cell_name
-from sheetnet.book.describe import parse_description, spec_from_dict
-from sheetnet.book.layout import LAYOUT, SCORING, BookLayout, ParamBlocks, build_layout
+from sheetnet.book.layout import SCORING, BookLayout, ParamBlocks
 from sheetnet.book.spec import BookInputs, BookSpec
+from sheetnet.book.untrusted import NEEDED_TO_VERIFY, Description, read_description
 from sheetnet.book.xlsxread import CellError, Workbook
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.net.model import Layer
 
 
-def description_text(book: Workbook) -> str:
-    if LAYOUT not in book.sheets:
-        raise WorkbookFormatError(f"{book.path}: not a sheetnet workbook (no {LAYOUT!r} sheet with its layout)")
-    cells = book.sheets[LAYOUT].values
-    chunks = [cells[(row, 0)] for row in range(1, 1 + len(cells)) if isinstance(cells.get((row, 0)), str)]
-    return "".join(chunks)
-
-
-def read_layout(book: Workbook) -> tuple[BookLayout, dict]:
-    """The layout the workbook was built with, and the parsed description (names, fingerprints)."""
-    data = parse_description(description_text(book))
-    spec: BookSpec = spec_from_dict(data["spec"])
-    return build_layout(spec), data
+def read_layout(book: Workbook) -> tuple[BookLayout, Description]:
+    """The layout the workbook was built with, from its checked description; DescriptionError when
+    the parts every check needs (format and spec) cannot be trusted."""
+    description = read_description(book)
+    return description.require(*NEEDED_TO_VERIFY), description
 
 
 def _value(book: Workbook, cell: Cell):

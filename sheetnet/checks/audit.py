@@ -15,23 +15,27 @@ from pathlib import Path
 
 from sheetnet.book import layout as L
 from sheetnet.book.addresses import Block, a1, column_letters, defined_name_target, parse_a1
-from sheetnet.book.describe import inputs_from_dict
+from sheetnet.book.canonical import normalize_formula, target_text
+from sheetnet.book.jsoncheck import Problem, json_differences
 from sheetnet.book.layout import BookLayout, Table
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
+from sheetnet.book.untrusted import read_description
 from sheetnet.book.xlsxread import CellError, SheetCells, Workbook, read_workbook
-from sheetnet.checks.verify import _plain, compare, engine_values, expected_entries, normalize_formula
+from sheetnet.checks.verify import _plain, compare, engine_values, expected_entries
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
 
-KINDS = ("structural", "formula_edits", "value_mismatches", "input_edits", "risks")
+KINDS = ("description", "signature", "structural", "formula_edits", "value_mismatches", "input_edits", "risks")
 VOLATILE = ("NOW", "TODAY", "RAND", "RANDBETWEEN", "OFFSET", "INDIRECT", "INFO", "CELL", "RANDARRAY")
 _VOLATILE = re.compile(r'"(?:[^"]|"")*"|\b(' + "|".join(VOLATILE) + r")\s*\(", re.I)
 #: Relative change below which a number counts as unchanged (a round trip through an application
 #: that stores 15 significant digits must not read as an edit).
 SAME_NUMBER = 1e-13
 VALUE_LIMIT = 200
+SELF_ASSERTED = ("the layout description stored in the file is self-asserted: whoever can edit the file can edit "
+                 "it; --against ORIGINAL or a signature key (--key) gives independent assurance")
 
 
 @dataclass(frozen=True)
@@ -128,7 +132,7 @@ def check_names(report: AuditReport, book: Workbook, layout: BookLayout, mapping
     for name, target in expected.items():
         if name not in found:
             report.add(Finding("", name, "structural", target, None, f"defined name {name} is missing"))
-        elif _name_target(found[name]) != _name_target(target):
+        elif target_text(found[name]) != target_text(target):
             report.add(Finding("", name, "structural", target, found[name],
                                f"defined name {name} now refers elsewhere"))
     for name, target in found.items():
@@ -137,10 +141,6 @@ def check_names(report: AuditReport, book: Workbook, layout: BookLayout, mapping
     for sheet, name, target in book.local_names:
         if not name.startswith("_xlnm"):
             report.add(Finding(sheet, name, "structural", None, target, f"sheet-scoped name {name} was added"))
-
-
-def _name_target(text: str) -> str:
-    return text.replace("$", "").replace("'", "").lstrip("=").upper()
 
 
 def _moved(block: Block, mapping: dict[str, str]) -> Block:
@@ -498,19 +498,48 @@ def _renamed_view(book: Workbook, mapping: dict[str, str]) -> Workbook:
 # ---------------------------------------------------------------- the audit
 
 
-def _reference(book: Workbook, against: Path | None):
-    """Layout, original inputs, reference formulas and sheet signatures."""
+@dataclass
+class Reference:
+    """What the audit compares with: the layout, the original inputs (None when the stored ones cannot
+    be trusted), the original formulas (with --against), sheet names and their signatures."""
+
+    layout: BookLayout
+    original: BookInputs | None
+    formulas: dict | None
+    sheets: list[str]
+    signatures: dict | None
+
+
+def _reference(report: AuditReport, book: Workbook, against: Path | None) -> Reference | None:
+    """The reference, with every problem of the description(s) added as a finding; None when the
+    description cannot give a layout to compare with."""
     if against is None:
-        layout, data = read_layout(book)
-        original = inputs_from_dict(data.get("inputs") or {}, layout.spec) if data.get("inputs") else \
-            read_inputs(book, layout)
-        return layout, original, None, data.get("sheets", []), None
+        try:
+            own = read_description(book)
+        except WorkbookFormatError as exc:
+            raise WorkbookFormatError(f"{exc} (without its layout description the file cannot be audited; "
+                                      "give the original with --against)") from None
+        _description_findings(report, own.problems)
+        if own.layout is None:
+            return None
+        return Reference(own.layout, own.original, None, own.layout.sheet_names(), None)
     reference = read_workbook(against)
-    layout, data = read_layout(reference)
+    layout, trusted = read_layout(reference)
+    try:
+        edited = read_description(book).data
+    except WorkbookFormatError:
+        edited = None
+    _description_findings(report, [Problem("format", path, f"differs from the original's description: {what}")
+                                   for path, what in json_differences(trusted.data, edited)])
     formulas = {(sheet, pos): "=" + text for sheet, cells in reference.sheets.items()
                 for pos, text in cells.formulas.items()}
     signatures = {name: _sheet_signature(cells) for name, cells in reference.sheets.items()}
-    return layout, read_inputs(reference, layout), formulas, list(reference.sheets), signatures
+    return Reference(layout, read_inputs(reference, layout), formulas, list(reference.sheets), signatures)
+
+
+def _description_findings(report: AuditReport, problems: list[Problem]) -> None:
+    for problem in problems:
+        report.add(Finding("", problem.where, "description", None, None, problem.what))
 
 
 def audit(path: str | Path, against: str | Path | None = None) -> AuditReport:
@@ -523,25 +552,34 @@ def _audit(path: Path, against: Path | None) -> AuditReport:
     from sheetnet.book.numbers import compute
 
     book = read_workbook(path, allow_macros=True)
-    try:
-        layout, original, formulas, sheets, signatures = _reference(book, against)
-    except WorkbookFormatError as exc:
-        raise WorkbookFormatError(f"{exc} (without its layout description the file cannot be audited; "
-                                  "give the original with --against)") from None
     report = AuditReport(path=path, reference=str(against) if against else "layout description stored in the file")
+    reference = _reference(report, book, against)
+    if reference is None:
+        check_risks(report, book)
+        report.notes.append("the layout description cannot be trusted, so the cells were not compared with it; "
+                            "give the original workbook with --against to compare them")
+        return report
+    if against is None:
+        report.notes.append(SELF_ASSERTED)
+    layout = reference.layout
+    original = reference.original if reference.original is not None else read_inputs(book, layout)
     numbers = compute(layout.spec, original)
-    report.reference_sheets = signatures or _signatures(layout, numbers)
+    report.reference_sheets = reference.signatures or _signatures(layout, numbers)
     engine = Background(engine_values, book, "embedded")
     try:
-        mapping = map_sheets(report, book, sheets or list(book.sheets))
+        mapping = map_sheets(report, book, reference.sheets)
         report.sheet_map = mapping
         check_names(report, book, layout, mapping)
         shifted = find_shifts(report, book, layout, mapping)
         shifted.update(find_block_shifts(report, book, layout, numbers, mapping))
         check_merges(report, book, layout, mapping)
         check_risks(report, book)
-        check_inputs(report, book, layout, original, mapping, shifted)
-        check_formulas(report, book, layout, numbers, mapping, shifted, formulas)
+        if reference.original is not None:
+            check_inputs(report, book, layout, reference.original, mapping, shifted)
+        else:
+            report.notes.append("input edits were not listed: the original inputs stored in the description "
+                                "cannot be trusted")
+        check_formulas(report, book, layout, numbers, mapping, shifted, reference.formulas)
         _values_if_possible(report, book, layout, mapping, shifted, engine)
     finally:
         engine.stop()

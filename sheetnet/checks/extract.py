@@ -10,6 +10,7 @@ import numpy as np
 from sheetnet.book.describe import Fingerprints
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.untrusted import Description
 from sheetnet.book.xlsxread import Workbook, read_workbook
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
@@ -26,26 +27,26 @@ def formula_fingerprints(book: Workbook) -> dict[str, str]:
     return prints.to_dict()["formulas"]
 
 
-def unchanged_since_build(book: Workbook, layout: BookLayout, data: dict) -> bool:
+def unchanged_since_build(book: Workbook, layout: BookLayout, description: Description) -> bool:
     """No formula and no input differs from what build wrote (so build's cached values are current)."""
-    from sheetnet.book.describe import inputs_from_dict
     from sheetnet.checks.audit import input_cells
 
-    if not data.get("inputs") or formula_fingerprints(book) != data.get("fingerprints", {}).get("formulas"):
+    if description.original is None or description.problems_in("fingerprints") or \
+            formula_fingerprints(book) != description.data["fingerprints"]["formulas"]:
         return False
-    original = input_cells(layout, inputs_from_dict(data["inputs"], layout.spec))
+    original = input_cells(layout, description.original)
     now = input_cells(layout, read_inputs(book, layout))
     return all(a[2] == b[2] for a, b in zip(original, now, strict=True))
 
 
-def _final_layers(book: Workbook, layout: BookLayout, data: dict) -> tuple[tuple[Layer, ...], str]:
+def _final_layers(book: Workbook, layout: BookLayout, description: Description) -> tuple[tuple[Layer, ...], str]:
     blocks = layout.final
     if blocks is None:
         raise WorkbookFormatError(f"{book.path}: the workbook has no training record to take parameters from")
     cells = [(b.sheet, b.top + i, b.left + j) for b in (*blocks.weights, *blocks.bias)
              for i in range(b.nrows) for j in range(b.ncols)]
     cached = {key: book.sheets[key[0]].values.get(key[1:]) for key in cells}
-    if all(isinstance(v, float) for v in cached.values()) and unchanged_since_build(book, layout, data):
+    if all(isinstance(v, float) for v in cached.values()) and unchanged_since_build(book, layout, description):
         values, note = cached, "parameters after training read from the cached values (current)"
     else:
         from sheetnet.engines.embedded import recalculate
@@ -72,13 +73,13 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
     """The workbook's model: from the Parameters sheet, or after the training record's last step."""
     with paused_gc():
         book = read_workbook(path)
-        layout, data = read_layout(book)
+        layout, description = read_layout(book)
         inputs = read_inputs(book, layout)
         spec = layout.spec
         note = "parameters read from the Parameters sheet"
         layers = inputs.layers
         if after_training:
-            layers, note = _final_layers(book, layout, data)
+            layers, note = _final_layers(book, layout, description)
         model = inputs.model(spec, layers=layers)
         training = {"extracted_from": Path(path).name, "after_training": after_training,
                     "provenance": dict(spec.provenance)}

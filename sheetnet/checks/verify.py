@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import itertools
 import math
-import re
 import tempfile
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -21,6 +20,7 @@ import numpy as np
 
 from sheetnet.book import plan
 from sheetnet.book.addresses import a1, quote_sheet
+from sheetnet.book.canonical import normalize_formula
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
@@ -46,20 +46,6 @@ def expected_entries(layout: BookLayout, numbers) -> Iterator[tuple[str, plan.En
     for name, entries in sheets:
         for entry in entries(layout, numbers):
             yield name, entry
-
-
-_SPACE_OUTSIDE_STRINGS = re.compile(r'("(?:[^"]|"")*")|\s+')
-_NUMBER = re.compile(r'("(?:[^"]|"")*")|(?<![A-Za-z_$0-9.])([0-9]+\.?[0-9]*(?:[Ee][+-]?[0-9]+)?)(?![A-Za-z_(0-9])')
-
-
-def normalize_formula(text: str) -> str:
-    """Formula text compared without '=', spaces, case of names or the spelling of numbers
-    (LibreOffice writes 1E-12 as 1E-012)."""
-    text = text[1:] if text.startswith("=") else text
-    text = _SPACE_OUTSIDE_STRINGS.sub(lambda m: m.group(1) or "", text)
-    text = _NUMBER.sub(lambda m: m.group(1) or repr(float(m.group(2))), text)
-    parts = re.split(r'("(?:[^"]|"")*")', text)
-    return "".join(p if p.startswith('"') else p.upper().replace("_XLFN.", "") for p in parts)
 
 
 def agree(found, expected, tolerance: float) -> bool:
@@ -296,6 +282,7 @@ def engine_values(book: Workbook, engine: str) -> tuple[dict, list]:
 class VerifyReport:
     path: Path
     comparisons: list[Comparison]
+    description_problems: list[str] = field(default_factory=list)  # in parts verify does not need
 
     @property
     def ok(self) -> bool:
@@ -304,8 +291,9 @@ class VerifyReport:
     def to_dict(self) -> dict:
         first = self.comparisons[0].to_dict()
         if len(self.comparisons) == 1:
-            return {**first, "file": str(self.path)}
+            return {**first, "file": str(self.path), "description_problems": self.description_problems}
         merged = {"ok": self.ok, "engine": "both", "file": str(self.path), "tolerance": first["tolerance"],
+                  "description_problems": self.description_problems,
                   "engines": {c.engine: c.to_dict() for c in self.comparisons}}
         for key in ("cells_compared", "max_abs_diff", "mismatches", "errors", "stale_cached", "formula_differences"):
             values = [c.to_dict()[key] for c in self.comparisons]
@@ -333,7 +321,7 @@ def _verify(path: Path, engine: str, tolerance: float, progress) -> VerifyReport
     progress(0)
     book = read_workbook(path)
     progress(1)
-    layout, _ = read_layout(book)
+    layout, description = read_layout(book)
     names = ("embedded", "libreoffice") if engine == "both" else (engine,)
     # The engines recalculate in child processes while this one runs the reference: both need
     # only the file, and a 2-core machine does the two at once.
@@ -354,4 +342,5 @@ def _verify(path: Path, engine: str, tolerance: float, progress) -> VerifyReport
         for _, job in running:
             job.stop()
     progress(VERIFY_STAGES)
-    return VerifyReport(path=Path(path), comparisons=comparisons)
+    return VerifyReport(path=Path(path), comparisons=comparisons,
+                        description_problems=[str(p) for p in description.problems])

@@ -1,0 +1,300 @@
+"""The layout description of a returned workbook, read as untrusted input.
+
+Verify, audit and extract rebuild every expected cell from the description that ``build`` stored on
+a hidden sheet. Anyone who can edit the workbook can edit that description, so before anything is
+allocated from it, it is checked in this order:
+
+1. its text: size and nesting caps, valid JSON;
+2. a strict schema (``schema``): types, ranges, finite numbers, lengths, shapes, and the spec's parts
+   consistent with each other;
+3. against the spreadsheet's limits and the workbook actually present: every block inside a sheet,
+   no sheet asked to hold (much) more rows, columns or cells than it holds, the parameter blocks the
+   same size as the defined names that point at them;
+4. its derived parts: the stored names and sheet list equal what the spec implies, the stored
+   original inputs have the spec's shapes.
+
+Every problem is collected (never raised here) with the part it concerns, so each command decides:
+verify needs only the spec, extract the spec (and the original inputs when present), and audit
+reports every problem as a finding.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from dataclasses import dataclass, field
+from typing import Any
+
+from sheetnet.book.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
+from sheetnet.book.describe import FORMAT, VERSION
+from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
+from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
+from sheetnet.book.schema import read_original_inputs, read_spec
+from sheetnet.book.spec import BookInputs, BookSpec
+from sheetnet.book.xlsxread import Workbook
+from sheetnet.errors import DescriptionError, WorkbookFormatError
+
+#: The description's text is refused beyond this many characters (a million-cell workbook's is
+#: about 30 million).
+MAX_DESCRIPTION_CHARS = 128 * 1024**2
+SIGNATURE_ALGORITHM = "HMAC-SHA256"
+_TOP_KEYS = ("format", "version", "tool", "spec", "sheets", "names", "fingerprints", "inputs")
+#: What verify needs from the description; extract needs the same.
+NEEDED_TO_VERIFY = ("format", "spec")
+
+
+@dataclass
+class Description:
+    """The checked description. ``layout`` is None when the spec cannot be trusted; ``original``
+    (the inputs as built) is None when that section cannot."""
+
+    data: dict | None
+    layout: BookLayout | None
+    original: BookInputs | None
+    problems: list[Problem] = field(default_factory=list)
+
+    @property
+    def spec(self) -> BookSpec | None:
+        return None if self.layout is None else self.layout.spec
+
+    def problems_in(self, *parts: str) -> list[Problem]:
+        return [p for p in self.problems if p.part in parts]
+
+    def require(self, *parts: str) -> BookLayout:
+        """The layout, or DescriptionError naming the first problem in ``parts``."""
+        problems = self.problems_in(*parts)
+        if problems or self.layout is None:
+            problems = problems or self.problems
+            more = f" (and {len(problems) - 1} more; 'sheetnet audit' lists them)" if len(problems) > 1 else ""
+            raise DescriptionError(f"the workbook's layout description cannot be trusted: {problems[0]}{more}",
+                                   problems)
+        return self.layout
+
+    @property
+    def signature(self) -> dict | None:
+        return None if self.data is None else self.data.get("signature")
+
+
+def description_text(book: Workbook) -> str:
+    """The JSON text, joined from the cells of the hidden layout sheet."""
+    if LAYOUT not in book.sheets:
+        raise WorkbookFormatError(f"{book.path}: not a sheetnet workbook (no {LAYOUT!r} sheet with its layout)")
+    cells = book.sheets[LAYOUT].values
+    rows = sorted(row for (row, col), value in cells.items() if col == 0 and row >= 1 and isinstance(value, str))
+    return "".join(cells[(row, 0)] for row in rows)
+
+
+def read_description(book: Workbook) -> Description:
+    """The description checked as untrusted input; problems are collected, not raised."""
+    data, problems = _parse(description_text(book))
+    if data is None:
+        return Description(None, None, None, problems)
+    spec, spec_problems = read_spec(data["spec"])
+    problems += spec_problems
+    layout = None
+    if spec is not None:
+        layout = build_layout(spec)
+        against = _against_the_workbook(layout, book)
+        problems += against
+        layout = None if against else layout
+    original = None
+    if layout is not None:
+        problems += _derived_parts(data, layout)
+        original, input_problems = read_original_inputs(data["inputs"], layout.spec)
+        problems += input_problems
+    problems += _fingerprints(data.get("fingerprints"), data.get("sheets"))
+    problems += _signature(data.get("signature"))
+    return Description(data, layout, original, problems)
+
+
+def _parse(text: str) -> tuple[dict | None, list[Problem]]:
+    check = Checker("format")
+    if len(text) > MAX_DESCRIPTION_CHARS:
+        check.add("", f"the description is {len(text):,} characters long; at most {MAX_DESCRIPTION_CHARS:,}")
+        return None, check.problems
+    if nesting_depth(text) > MAX_DEPTH:
+        check.add("", f"the description nests deeper than {MAX_DEPTH} levels")
+        return None, check.problems
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        check.add("", f"not valid JSON (character {exc.pos:,}: {exc.msg})")
+        return None, check.problems
+    except (ValueError, RecursionError) as exc:
+        check.add("", f"not valid JSON ({exc})")
+        return None, check.problems
+    raw = check.obj(data, "(top level)", _TOP_KEYS, ("signature",))
+    if raw is None:
+        return None, check.problems
+    if raw["format"] != FORMAT:
+        check.add("format", f"expected {FORMAT!r}, found {raw['format']!r:.40}")
+    if raw["version"] != VERSION:
+        check.add("version", f"version {raw['version']!r:.20} is not supported (this sheetnet reads {VERSION})")
+    check.text(raw["tool"], "tool", 200)
+    return (None if check.problems else raw), check.problems
+
+
+# ---------------------------------------------------------------- against the workbook
+
+
+def _room(held: int) -> int:
+    """How far a description may reach past what a sheet holds: rows and columns that users delete,
+    or cells they clear, must not make a genuine description look altered."""
+    return held + 16 + held // 10
+
+
+@dataclass
+class _Extent:
+    """The last row and column used on a sheet, and how many distinct rows hold something."""
+
+    last_row: int = -1
+    last_col: int = -1
+    rows: int = 0
+
+
+def _covered_rows(spans: list[tuple[int, int]]) -> int:
+    """How many distinct rows a set of (top, bottom) spans covers."""
+    count, reached = 0, -1
+    for top, bottom in sorted(spans):
+        if bottom > reached:
+            count += bottom - max(top, reached + 1) + 1
+            reached = bottom
+    return count
+
+
+def layout_extents(layout: BookLayout) -> dict[str, _Extent]:
+    """Per sheet: the last row and column any block reaches, and the rows the blocks cover."""
+    spans: dict[str, list[tuple[int, int]]] = {}
+    extents: dict[str, _Extent] = {}
+
+    def put(sheet: str, top: int, bottom: int, right: int) -> None:
+        extent = extents.setdefault(sheet, _Extent())
+        extent.last_row, extent.last_col = max(extent.last_row, bottom), max(extent.last_col, right)
+        spans.setdefault(sheet, []).append((top, bottom))
+
+    def visit(item: Any) -> None:
+        if isinstance(item, Table):
+            visit(item.block)
+        elif isinstance(item, Block):
+            put(item.sheet, item.top, item.bottom, item.right)
+        elif isinstance(item, Cell):
+            put(item.sheet, item.row, item.row, item.col)
+        elif isinstance(item, tuple | list):
+            for part in item:
+                visit(part)
+        elif isinstance(item, dict):
+            for part in item.values():
+                visit(part)
+        elif dataclasses.is_dataclass(item) and not isinstance(item, type):
+            for f in dataclasses.fields(item):
+                visit(getattr(item, f.name))
+
+    for f in dataclasses.fields(layout):
+        if f.name not in ("spec", "step_rows"):
+            visit(getattr(layout, f.name))
+    for sheet, extent in extents.items():
+        extent.rows = _covered_rows(spans[sheet])
+    return extents
+
+
+def _held(book: Workbook) -> dict[str, _Extent]:
+    held = {}
+    for name, cells in book.sheets.items():
+        rows = {r for r, _ in cells.values}  # every cell the reader found, formula or constant
+        held[name] = _Extent(max(rows, default=-1), max((c for _, c in cells.values), default=-1), len(rows))
+    return held
+
+
+def _against_the_workbook(layout: BookLayout, book: Workbook) -> list[Problem]:
+    check = Checker("spec")
+    held = _held(book)
+    others = [extent for name, extent in held.items() if name != LAYOUT]
+    largest = _Extent(max((e.last_row for e in others), default=-1), max((e.last_col for e in others), default=-1),
+                      max((e.rows for e in others), default=0))
+    for sheet, claimed in layout_extents(layout).items():
+        if claimed.last_row >= MAX_ROWS or claimed.last_col >= MAX_COLS:
+            check.add(f"sheet {sheet!r}", f"the description reaches row {claimed.last_row + 1:,}, column "
+                                          f"{claimed.last_col + 1:,}: outside the sheet's {MAX_ROWS:,} x {MAX_COLS:,}")
+            continue
+        found = held.get(sheet, largest)  # a renamed sheet may be any of the others
+        _compare_extent(check, sheet, claimed, found)
+    _parameter_names(check, layout, book)
+    return check.problems
+
+
+def _compare_extent(check: Checker, sheet: str, claimed: _Extent, found: _Extent) -> None:
+    where = f"sheet {sheet!r}"
+    if claimed.rows > _room(found.rows):
+        check.add(where, f"the description needs {claimed.rows:,} rows of cells; the sheet holds {found.rows:,}")
+    elif claimed.last_row > _room(found.last_row + 1) - 1:
+        check.add(where, f"the description needs rows down to {claimed.last_row + 1:,}; the sheet's last row is "
+                         f"{found.last_row + 1:,}")
+    elif claimed.last_col > _room(found.last_col + 1) - 1:
+        check.add(where, f"the description needs columns up to {column_letters(claimed.last_col)}; the sheet "
+                         f"holds columns up to {column_letters(max(found.last_col, 0))}")
+
+
+def _parameter_names(check: Checker, layout: BookLayout, book: Workbook) -> None:
+    """Each block the file names (W_1, b_1, scale_offset...) has the size the description gives it:
+    applications move names with their cells, so a moved block keeps its size."""
+    for name, block in layout.defined_names().items():
+        found = parse_range(book.names.get(name, ""))
+        if found is not None and (found.nrows, found.ncols) != (block.nrows, block.ncols):
+            check.add(f"defined name {name}", f"the description makes it {block.nrows} x {block.ncols} cells; the "
+                                              f"workbook's {name} covers {found.nrows} x {found.ncols}")
+
+
+# ---------------------------------------------------------------- derived parts
+
+
+def _derived_parts(data: dict, layout: BookLayout) -> list[Problem]:
+    """The stored names and sheet list are functions of the spec: any difference was made by hand."""
+    names = Checker("names")
+    stored = data["names"] if isinstance(data["names"], dict) else None
+    if stored is None:
+        names.add("names", "expected an object")
+    expected = {name: dataclasses.asdict(block) for name, block in layout.defined_names().items()}
+    if stored is not None and stored != expected:
+        for name in sorted(set(stored) | set(expected)):
+            if stored.get(name) != expected.get(name):
+                names.add(f"names.{name}", f"stored as {_block_text(stored.get(name))}, but the spec places it at "
+                                           f"{_block_text(expected.get(name))}")
+    sheets = Checker("sheets")
+    if data["sheets"] != layout.sheet_names():
+        sheets.add("sheets", f"the stored sheet list differs from the spec's: {', '.join(layout.sheet_names())}")
+    return names.problems + sheets.problems
+
+
+def _block_text(block: Any) -> str:
+    if block is None:
+        return "nothing"
+    try:
+        return f"{block['sheet']}!{a1(block['top'], block['left'])} ({block['nrows']} x {block['ncols']})"
+    except (KeyError, TypeError, ValueError):
+        return repr(block)[:60]
+
+
+def _fingerprints(value: Any, sheets: Any) -> list[Problem]:
+    check = Checker("fingerprints")
+    raw = check.obj(value, "fingerprints", ("formulas", "inputs"), ("cells", "names"))
+    if raw is None:
+        return check.problems
+    known = set(sheets) if isinstance(sheets, list) and all(isinstance(s, str) for s in sheets) else set()
+    for kind in ("formulas", "inputs", "cells"):
+        digests = check.obj(raw.get(kind, {}), f"fingerprints.{kind}", (), tuple(known))
+        for sheet, digest in (digests or {}).items():
+            check.hexdigest(digest, f"fingerprints.{kind}.{sheet}", 64)
+    if "names" in raw:
+        check.hexdigest(raw["names"], "fingerprints.names", 64)
+    return check.problems
+
+
+def _signature(value: Any) -> list[Problem]:
+    check = Checker("signature")
+    if value is not None:
+        raw = check.obj(value, "signature", ("algorithm", "key_id", "mac"))
+        if raw is not None:
+            check.text(raw["algorithm"], "signature.algorithm", choices=(SIGNATURE_ALGORITHM,))
+            check.hexdigest(raw["key_id"], "signature.key_id", 16)
+            check.hexdigest(raw["mac"], "signature.mac", 64)
+    return check.problems
