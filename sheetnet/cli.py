@@ -19,13 +19,15 @@ import numpy as np
 
 from sheetnet import __version__
 from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.book.signing import key_id, key_readable_by_others, new_key_text, read_key
 from sheetnet.checks.annotate import annotate
 from sheetnet.checks.audit import audit
 from sheetnet.checks.extract import extract
-from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, VERIFY_STAGES, verify
+from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, VERIFY_STAGES, signature_of, verify
 from sheetnet.demo import DEMO_FLAGS, demo_csv_text
 from sheetnet.errors import (
     CannotVerifyError,
+    DescriptionError,
     EvaluationError,
     SheetNetError,
     TrainingError,
@@ -166,6 +168,8 @@ def _parser() -> argparse.ArgumentParser:
     build_p.add_argument("--trace-rows", type=_count, help="training rows replayed in the record (default all)")
     build_p.add_argument("--max-cells", type=_count, default=DEFAULT_MAX_CELLS,
                          help=f"cap on formula cells (default {DEFAULT_MAX_CELLS:,})")
+    build_p.add_argument("--sign-key", type=Path, metavar="KEYFILE",
+                         help="sign the workbook with this secret key (HMAC-SHA256; make one with 'sheetnet new-key')")
     build_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="workbook to write")
     demo_p = commands.add_parser("demo", help="build the demo workbook from invented data")
     demo_p.add_argument("--out", type=Path, default=Path("sheetnet_demo"), help="folder to write into")
@@ -176,12 +180,14 @@ def _parser() -> argparse.ArgumentParser:
     verify_p.add_argument("--engine", choices=ENGINES, default="embedded")
     verify_p.add_argument("--tolerance", type=_positive, default=DEFAULT_TOLERANCE,
                           help="a cell agrees when |found - expected| <= tolerance * max(1, |expected|)")
+    verify_p.add_argument("--key", type=Path, metavar="KEYFILE", help="also check the signature made with this key")
     verify_p.add_argument("--json", type=Path, help="write the report as JSON here")
     verify_p.add_argument("--force", action="store_true", help="overwrite an existing JSON report")
     verify_p.add_argument("--quiet", action="store_true", help="no progress bar")
     audit_p = commands.add_parser("audit", help="find exactly what changed in an edited workbook")
     audit_p.add_argument("book", type=Path)
     audit_p.add_argument("--against", type=Path, help="the original workbook to compare with")
+    audit_p.add_argument("--key", type=Path, metavar="KEYFILE", help="also check the signature made with this key")
     audit_p.add_argument("--json", type=Path, help="write the findings as JSON here")
     audit_p.add_argument("--annotate", type=Path, help="write a copy with every finding highlighted")
     audit_p.add_argument("--force", action="store_true", help="overwrite existing report files")
@@ -201,6 +207,9 @@ def _parser() -> argparse.ArgumentParser:
     rates_p.add_argument("--rates", type=_rates, required=True, help="learning rates to compare, e.g. 0.01,0.1,1")
     rates_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="HTML report to write")
     rates_p.add_argument("--workbook", type=Path, help="also write a workbook with the curves and a native chart")
+    key_p = commands.add_parser("new-key", help="make a secret key file for signing workbooks")
+    key_p.add_argument("keyfile", type=Path, help="key file to write (readable by you only)")
+    key_p.add_argument("--force", action="store_true", help="overwrite an existing key file")
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path)
     score_p.add_argument("data", type=Path)
@@ -309,20 +318,44 @@ def cmd_build(args: argparse.Namespace) -> int:
         print("\n".join(summary_lines(outcome)))
         spec, inputs = from_fit(outcome, table, settings, options)
         notes = []
+    key = _key(args.sign_key)
     try:
         result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells,
-                                progress=Progress(1, "writing", quiet=args.quiet))
+                                progress=Progress(1, "writing", quiet=args.quiet), sign_key=key)
     except TrainingError as exc:
         if not args.model or spec.record is None:
             raise
         # a given model's scores still belong in a workbook when replaying training from it diverges
         notes.append(f"no training record: {exc} (from the model's weights at learning rate {args.lr:g})")
         result = write_workbook(replace(spec, record=None), inputs, args.out, force=args.force,
-                                max_cells=args.max_cells, progress=Progress(1, "writing", quiet=args.quiet))
+                                max_cells=args.max_cells, progress=Progress(1, "writing", quiet=args.quiet),
+                                sign_key=key)
+    if key is not None:
+        notes.append(f"signed with key id {key_id(key)}")
     for note in notes:
         print(f"note: {note}")
     record = "" if result.layout.record is None else f", training record of {result.layout.record.nrows:,} rows"
     print(f"workbook written to {result.path}: {result.formula_cells:,} formula cells{record}")
+    return 0
+
+
+def _key(path: Path | None) -> bytes | None:
+    """The secret key in a key file (None without one); a warning when others can read the file."""
+    if path is None:
+        return None
+    key = read_key(path)
+    if key_readable_by_others(path):
+        print(f"warning: {path} can be read by other users; keep a signing key private (chmod 600)",
+              file=sys.stderr)
+    return key
+
+
+def cmd_new_key(args: argparse.Namespace) -> int:
+    check_output(args.keyfile, args.force)
+    write_atomic(args.keyfile, lambda tmp: tmp.write_text(new_key_text(), encoding="ascii"), force=args.force,
+                 mode=0o600)
+    key = read_key(args.keyfile)
+    print(f"key written to {args.keyfile} (key id {key_id(key)}); keep it secret: whoever holds it can sign")
     return 0
 
 
@@ -362,16 +395,25 @@ def cmd_demo(args: argparse.Namespace) -> int:
 def cmd_verify(args: argparse.Namespace) -> int:
     if args.json:
         check_output(args.json, args.force, inputs=[args.book])
+    key = _key(args.key)
     try:
         bar = Progress(VERIFY_STAGES, "verifying", quiet=args.quiet)
-        report = verify(args.book, engine=args.engine, tolerance=args.tolerance, progress=bar)
+        report = verify(args.book, engine=args.engine, tolerance=args.tolerance, progress=bar, key=key)
     except (WorkbookFormatError, EvaluationError) as exc:
-        raise CannotVerifyError(f"cannot verify: {exc}") from None
+        raise CannotVerifyError(f"cannot verify: {exc}{_signature_note(args.book, key, exc)}") from None
     print("\n".join(verify_lines(report)))
     if args.json:
         text = json.dumps(report.to_dict(), indent=2, default=str) + "\n"
         write_text_atomic(args.json, text, force=args.force)
     return 0 if report.ok else 1
+
+
+def _signature_note(path: Path, key: bytes | None, error: Exception) -> str:
+    """For a workbook that cannot be verified: whether its signature holds (with a key)."""
+    if key is None or not isinstance(error, DescriptionError):
+        return ""
+    check = signature_of(path, key)
+    return f"; signature {check.status}: {check.detail}"
 
 
 def cmd_audit(args: argparse.Namespace) -> int:
@@ -381,7 +423,7 @@ def cmd_audit(args: argparse.Namespace) -> int:
             check_output(path, args.force, inputs=sources)
     bar = Progress(1, "auditing", quiet=args.quiet)
     bar(0)
-    report = audit(args.book, against=args.against)
+    report = audit(args.book, against=args.against, key=_key(args.key))
     bar(1)
     print("\n".join(audit_lines(report)))
     if args.json:
@@ -443,7 +485,8 @@ def cmd_rates(args: argparse.Namespace) -> int:
 
 
 COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo, "verify": cmd_verify,
-            "audit": cmd_audit, "extract": cmd_extract, "report": cmd_report, "rates": cmd_rates}
+            "audit": cmd_audit, "extract": cmd_extract, "report": cmd_report, "rates": cmd_rates,
+            "new-key": cmd_new_key}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

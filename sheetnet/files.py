@@ -39,15 +39,16 @@ def _same_file(a: Path, b: Path) -> bool:
         return False
 
 
-def write_atomic(path: Path, write: Callable[[Path], None], force: bool = False) -> Path:
-    """Call ``write(tmp)`` on a temporary path beside ``path`` and move it into place."""
+def write_atomic(path: Path, write: Callable[[Path], None], force: bool = False, mode: int | None = None) -> Path:
+    """Call ``write(tmp)`` on a temporary path beside ``path`` and move it into place (with ``mode``,
+    or the mode a new file would get)."""
     target = check_output(path, force)
     fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent or ".")
     os.close(fd)
     tmp = Path(tmp_name)
     try:
         write(tmp)
-        os.chmod(tmp, _file_mode(target))
+        os.chmod(tmp, _file_mode(target) if mode is None else mode)
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(OSError):

@@ -49,9 +49,13 @@ def verify_lines(report: VerifyReport) -> list[str]:
         lines.append(f"note: the layout description has {len(report.description_problems)} problem(s) in parts "
                      f"verification does not use (first: {report.description_problems[0]}); 'sheetnet audit' "
                      "lists them")
-    if report.ok:
+    if report.signature is not None:
+        lines.append(f"signature: {report.signature.status.upper()} (key id {report.signature.key_id}): "
+                     f"{report.signature.detail}")
+    if all(c.ok for c in report.comparisons):
         cells = report.comparisons[0].cells_compared
-        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer")
+        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer"
+                     + ("" if report.ok else "; but the signature does not hold"))
     else:
         lines.append("verdict: FAILED: the workbook does not reproduce the reference trainer (see above)")
     return lines

@@ -12,6 +12,7 @@ from sheetnet.book.addresses import MAX_COLS, MAX_ROWS
 from sheetnet.book.describe import describe
 from sheetnet.book.layout import BookLayout, build_layout
 from sheetnet.book.numbers import compute
+from sheetnet.book.signing import CellDigests
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.book.write import write_book
 from sheetnet.errors import UsageError, WorkbookFormatError
@@ -158,22 +159,26 @@ def check_size(layout: BookLayout, max_cells: int) -> int:
 
 
 def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool = False,
-                   max_cells: int = DEFAULT_MAX_CELLS, progress=None) -> BuildResult:
+                   max_cells: int = DEFAULT_MAX_CELLS, progress=None, sign_key: bytes | None = None) -> BuildResult:
     """Lay out, compute the reference numbers, check the size, write atomically.
 
     ``progress`` (optional, e.g. a :class:`sheetnet.progress.Progress`) gets a ``total`` (the estimated
-    formula cells) and is called with the number written so far."""
+    formula cells) and is called with the number written so far. With ``sign_key`` the description
+    carries an HMAC-SHA256 signature over itself and every cell (``sheetnet.book.signing``)."""
     layout = build_layout(spec)
     estimate = check_size(layout, max_cells)
     if progress is not None:
         progress.total = max(estimate, 1)
     numbers = compute(spec, inputs)
     counted: list[int] = []
+    digests = CellDigests() if sign_key is not None else None
+
+    def describe_with(fingerprints, sheets) -> str:
+        return describe(layout, inputs, sheets, fingerprints, digests, sign_key)
 
     def write(tmp: Path) -> None:
         with paused_gc():
-            counted.append(write_book(tmp, layout, numbers, lambda fp, sheets: describe(layout, inputs, sheets, fp),
-                                      progress))
+            counted.append(write_book(tmp, layout, numbers, describe_with, progress, digests))
 
     write_atomic(Path(path), write, force=force)
     return BuildResult(path=Path(path), formula_cells=counted[0], layout=layout)

@@ -26,6 +26,7 @@ from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import Numbers
 from sheetnet.book.plan import Entry
+from sheetnet.book.signing import CellDigests
 from sheetnet.errors import WorkbookFormatError
 
 FIXED_DATE = dt.datetime(2000, 1, 1, 0, 0, 0)
@@ -132,10 +133,21 @@ def _write(sheet: Worksheet, entry: Entry, formats: dict) -> None:
         sheet.write_comment(entry.row, entry.col, entry.note, {"x_scale": 2.2, "y_scale": 1.6})
 
 
-def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordered: bool = False) -> None:
-    """Write entries; ``ordered`` streams come row by row and plain rows are appended whole."""
+def _digest(digests: CellDigests | None, sheet: str, entries: Iterable[Entry]) -> None:
+    """Fold cells, given in row and column order, into the signature's cell digests."""
+    if digests is not None:
+        for e in entries:
+            digests.add(sheet, e.row, e.col, e.content if e.role == "formula" else None, e.content)
+
+
+def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordered: bool = False,
+                  digests: CellDigests | None = None) -> None:
+    """Write entries; ``ordered`` streams come row by row and plain rows are appended whole.
+    ``digests`` (when signing) receives every cell in row and column order."""
     if not ordered:
-        for entry in sorted(entries, key=lambda e: (e.row, e.col)):
+        entries = sorted(entries, key=lambda e: (e.row, e.col))
+        _digest(digests, sheet.name, entries)
+        for entry in entries:
             _write(sheet, entry, formats)
         return
     xf = {key: fmt._get_xf_index() for key, fmt in formats.items()}
@@ -145,6 +157,7 @@ def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordere
             raise WorkbookFormatError(f"internal: rows out of order on sheet {sheet.name!r}")
         last_row = row
         cells = sorted(group, key=lambda e: e.col)
+        _digest(digests, sheet.name, cells)
         if any(e.note for e in cells) or row in sheet.row_info:
             for entry in cells:
                 _write(sheet, entry, formats)
@@ -153,7 +166,7 @@ def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordere
         sheet.write_row_xml(row, cells[0].col, cells[-1].col, xml)
 
 
-def _guide(book, formats, layout: BookLayout, names: dict) -> None:
+def _guide(book, formats, layout: BookLayout, names: dict, digests: CellDigests | None) -> None:
     sheet = book.add_worksheet(L.GUIDE, worksheet_class=_Sheet)
     sheet.set_column(0, 0, 30)
     sheet.set_column(1, 1, 100)
@@ -167,6 +180,9 @@ def _guide(book, formats, layout: BookLayout, names: dict) -> None:
             sheet.write_string(row, 0, left, formats[role])
         if right:
             sheet.write_string(row, 1, right, wrapped["text" if role == "text" else "label"])
+        if digests is not None:
+            for col, text in ((0, left), (1, right)):
+                digests.add(L.GUIDE, row, col, None, text)
 
 
 def _sheet(book, name: str, widths: tuple[int, int] = (22, 14), header_row: int | None = None,
@@ -214,9 +230,11 @@ def _define_names(book, names: dict) -> None:
             raise WorkbookFormatError(f"internal: defined name {name!r} was refused")
 
 
-def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with, progress=None) -> int:
+def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with, progress=None,
+               digests: CellDigests | None = None) -> int:
     """Write every sheet; ``describe_with(fingerprints, sheet names)`` gives the layout description
-    text once every cell is written. Returns the number of formula cells."""
+    text once every cell is written (and, when signing, folded into ``digests``). Returns the number
+    of formula cells."""
     book = xlsxwriter.Workbook(str(path), {"constant_memory": True, "in_memory": False,
                                            "strings_to_numbers": False, "strings_to_formulas": False,
                                            "strings_to_urls": False})
@@ -238,16 +256,17 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with, 
                    (L.EPOCHS, plan.epoch_entries, (10, 14), (layout.epochs.first_row, 1), False)]
     with warnings.catch_warnings():
         warnings.simplefilter("error")
-        _guide(book, formats, layout, names)
+        _guide(book, formats, layout, names, digests)
         for name, entries, widths, freeze, ordered in sheets:
             sheet = _sheet(book, name, widths, None if freeze is None else freeze[0] - 1, _width(layout, name))
             if freeze:
                 sheet.freeze_panes(*freeze)
                 sheet.set_row(freeze[0] - 1, 48)  # room for wrapped column headers
-            write_entries(sheet, tally.stream(name, entries(layout, numbers)), formats, ordered=ordered)
+            write_entries(sheet, tally.stream(name, entries(layout, numbers)), formats, ordered=ordered,
+                          digests=digests)
             if name == L.EPOCHS:
                 _epochs_chart(book, sheet, layout)
-        _layout_sheet(book, describe_with(tally.fingerprints, [L.GUIDE, *(s[0] for s in sheets), L.LAYOUT]))
+        _layout_sheet(book, describe_with(tally.fingerprints, layout.sheet_names()))
         _define_names(book, names)
         book.get_worksheet_by_name(L.GUIDE).activate()
         book.close()

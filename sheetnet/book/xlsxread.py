@@ -158,8 +158,14 @@ def _shared_strings(zf: zipfile.ZipFile, targets: dict[str, str]) -> list[str]:
     return out
 
 
+_OOXML_ESCAPE = re.compile(r"_x([0-9A-Fa-f]{4})_")
+
+
 def _unescape(text: str) -> str:
-    return html.unescape(text) if "&" in text else text
+    """XML entities, then the ``_xHHHH_`` escapes OOXML uses for control characters (and for a
+    literal ``_x``, written ``_x005F_x``)."""
+    text = html.unescape(text) if "&" in text else text
+    return _OOXML_ESCAPE.sub(lambda m: chr(int(m.group(1), 16)), text) if "_x" in text else text
 
 
 def _value(kind: str, raw: str | None, inline: str | None, strings: list[str]) -> object:

@@ -19,8 +19,9 @@ from sheetnet.book.canonical import normalize_formula, target_text
 from sheetnet.book.jsoncheck import Problem, json_differences
 from sheetnet.book.layout import BookLayout, Table
 from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.signing import check_signature
 from sheetnet.book.spec import BookInputs
-from sheetnet.book.untrusted import read_description
+from sheetnet.book.untrusted import Description, read_description
 from sheetnet.book.xlsxread import CellError, SheetCells, Workbook, read_workbook
 from sheetnet.checks.verify import _plain, compare, engine_values, expected_entries
 from sheetnet.errors import WorkbookFormatError
@@ -510,25 +511,28 @@ class Reference:
     signatures: dict | None
 
 
-def _reference(report: AuditReport, book: Workbook, against: Path | None) -> Reference | None:
+def _own_description(book: Workbook, against: Path | None) -> Description | None:
+    """The edited file's description; None when it has none (only an audit --against can go on)."""
+    try:
+        return read_description(book)
+    except WorkbookFormatError as exc:
+        if against is None:
+            raise WorkbookFormatError(f"{exc} (without its layout description the file cannot be audited; "
+                                      "give the original with --against)") from None
+        return None
+
+
+def _reference(report: AuditReport, own: Description | None, against: Path | None) -> Reference | None:
     """The reference, with every problem of the description(s) added as a finding; None when the
     description cannot give a layout to compare with."""
     if against is None:
-        try:
-            own = read_description(book)
-        except WorkbookFormatError as exc:
-            raise WorkbookFormatError(f"{exc} (without its layout description the file cannot be audited; "
-                                      "give the original with --against)") from None
         _description_findings(report, own.problems)
         if own.layout is None:
             return None
         return Reference(own.layout, own.original, None, own.layout.sheet_names(), None)
     reference = read_workbook(against)
     layout, trusted = read_layout(reference)
-    try:
-        edited = read_description(book).data
-    except WorkbookFormatError:
-        edited = None
+    edited = None if own is None else own.data
     _description_findings(report, [Problem("format", path, f"differs from the original's description: {what}")
                                    for path, what in json_differences(trusted.data, edited)])
     formulas = {(sheet, pos): "=" + text for sheet, cells in reference.sheets.items()
@@ -537,29 +541,49 @@ def _reference(report: AuditReport, book: Workbook, against: Path | None) -> Ref
     return Reference(layout, read_inputs(reference, layout), formulas, list(reference.sheets), signatures)
 
 
+def _signature_findings(report: AuditReport, book: Workbook, own: Description | None, key: bytes | None) -> bool:
+    """Check the signature with ``key``; True when it holds (the description is then not self-asserted)."""
+    stored = None if own is None else own.signature
+    if key is None:
+        if isinstance(stored, dict):
+            report.notes.append(f"the file carries a signature (key id {stored.get('key_id')!s:.16}); give --key "
+                                "KEYFILE to check it")
+        return False
+    check = check_signature(book, None if own is None else own.data, key)
+    if check.holds:
+        report.notes.append(f"signature valid (key id {check.key_id}): {check.detail}")
+    else:
+        report.add(Finding("", "signature", "signature", "valid", check.status, f"signature {check.status}: "
+                                                                                  f"{check.detail}"))
+    return check.holds
+
+
 def _description_findings(report: AuditReport, problems: list[Problem]) -> None:
     for problem in problems:
         report.add(Finding("", problem.where, "description", None, None, problem.what))
 
 
-def audit(path: str | Path, against: str | Path | None = None) -> AuditReport:
-    """Every difference between an edited workbook and its reference, classified."""
+def audit(path: str | Path, against: str | Path | None = None, key: bytes | None = None) -> AuditReport:
+    """Every difference between an edited workbook and its reference, classified; with ``key``, whether
+    the workbook's signature holds."""
     with paused_gc():
-        return _audit(Path(path), None if against is None else Path(against))
+        return _audit(Path(path), None if against is None else Path(against), key)
 
 
-def _audit(path: Path, against: Path | None) -> AuditReport:
+def _audit(path: Path, against: Path | None, key: bytes | None) -> AuditReport:
     from sheetnet.book.numbers import compute
 
     book = read_workbook(path, allow_macros=True)
     report = AuditReport(path=path, reference=str(against) if against else "layout description stored in the file")
-    reference = _reference(report, book, against)
+    own = _own_description(book, against)
+    signed = _signature_findings(report, book, own, key)
+    reference = _reference(report, own, against)
     if reference is None:
         check_risks(report, book)
         report.notes.append("the layout description cannot be trusted, so the cells were not compared with it; "
                             "give the original workbook with --against to compare them")
         return report
-    if against is None:
+    if against is None and not signed:
         report.notes.append(SELF_ASSERTED)
     layout = reference.layout
     original = reference.original if reference.original is not None else read_inputs(book, layout)

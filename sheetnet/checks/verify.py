@@ -24,6 +24,8 @@ from sheetnet.book.canonical import normalize_formula
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.signing import SignatureCheck, check_signature
+from sheetnet.book.untrusted import read_description
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
@@ -283,17 +285,23 @@ class VerifyReport:
     path: Path
     comparisons: list[Comparison]
     description_problems: list[str] = field(default_factory=list)  # in parts verify does not need
+    signature: SignatureCheck | None = None  # with a key only
+
+    @property
+    def verdict(self) -> str:
+        return "ok" if all(c.ok for c in self.comparisons) else "mismatch"
 
     @property
     def ok(self) -> bool:
-        return all(c.ok for c in self.comparisons)
+        return all(c.ok for c in self.comparisons) and (self.signature is None or self.signature.holds)
 
     def to_dict(self) -> dict:
         first = self.comparisons[0].to_dict()
+        common = {"file": str(self.path), "description_problems": self.description_problems,
+                  "signature": None if self.signature is None else self.signature.to_dict()}
         if len(self.comparisons) == 1:
-            return {**first, "file": str(self.path), "description_problems": self.description_problems}
-        merged = {"ok": self.ok, "engine": "both", "file": str(self.path), "tolerance": first["tolerance"],
-                  "description_problems": self.description_problems,
+            return {**first, **common, "ok": self.ok}
+        merged = {"ok": self.ok, "engine": "both", **common, "tolerance": first["tolerance"],
                   "engines": {c.engine: c.to_dict() for c in self.comparisons}}
         for key in ("cells_compared", "max_abs_diff", "mismatches", "errors", "stale_cached", "formula_differences"):
             values = [c.to_dict()[key] for c in self.comparisons]
@@ -306,18 +314,30 @@ class VerifyReport:
 VERIFY_STAGES = 4
 
 
+def signature_of(path: str | Path, key: bytes) -> SignatureCheck:
+    """Whether a workbook's signature holds, without verifying its cells (for a workbook whose
+    description cannot be trusted: the signature then says whether it was altered after signing)."""
+    book = read_workbook(path)
+    try:
+        data = read_description(book).data
+    except WorkbookFormatError:
+        data = None
+    return check_signature(book, data, key)
+
+
 def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAULT_TOLERANCE,
-           progress=None) -> VerifyReport:
+           progress=None, key: bytes | None = None) -> VerifyReport:
     """Verify a workbook; raises WorkbookFormatError when it cannot be verified at all.
 
-    ``progress`` (optional) is called with the number of finished stages out of VERIFY_STAGES."""
+    ``progress`` (optional) is called with the number of finished stages out of VERIFY_STAGES; with
+    ``key`` the report also says whether the workbook's signature holds."""
     if engine not in ENGINES:
         raise WorkbookFormatError(f"unknown engine {engine!r}; expected one of {', '.join(ENGINES)}")
     with paused_gc():
-        return _verify(Path(path), engine, tolerance, progress or (lambda _done: None))
+        return _verify(Path(path), engine, tolerance, progress or (lambda _done: None), key)
 
 
-def _verify(path: Path, engine: str, tolerance: float, progress) -> VerifyReport:
+def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | None) -> VerifyReport:
     progress(0)
     book = read_workbook(path)
     progress(1)
@@ -342,5 +362,6 @@ def _verify(path: Path, engine: str, tolerance: float, progress) -> VerifyReport
         for _, job in running:
             job.stop()
     progress(VERIFY_STAGES)
+    signed = None if key is None else check_signature(book, description.data, key)
     return VerifyReport(path=Path(path), comparisons=comparisons,
-                        description_problems=[str(p) for p in description.problems])
+                        description_problems=[str(p) for p in description.problems], signature=signed)
