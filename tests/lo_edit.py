@@ -19,6 +19,7 @@ Operations (a list of dicts; rows and columns 0-based):
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import shutil
@@ -144,15 +145,11 @@ def _main(ops_path: str, source: str, target: str, work: str) -> None:
         doc.calculateAll()
         doc.storeToURL(uno.systemPathToFileUrl(target), (_prop("FilterName", "Calc MS Excel 2007 XML"),))
         doc.close(True)
-        try:
+        with contextlib.suppress(Exception):
             desktop.terminate()
-        except Exception:
-            pass
     finally:
-        try:
+        with contextlib.suppress(OSError):
             os.killpg(process.pid, 9)
-        except OSError:
-            pass
 
 
 if __name__ == "__main__":
