@@ -1,0 +1,245 @@
+"""The layout description inside a returned workbook is untrusted input.
+
+Every altered description of ``tests/description_corpus.py`` is run through every command that reads
+a workbook, each in a child process whose peak memory is measured and whose wall time is bounded:
+it must end cleanly (one line, a documented exit code, never an internal error) under 500 MB and
+30 s, and audit must report it as a finding of its own kind."""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import random
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from sheetnet.checks.audit import audit
+from sheetnet.checks.extract import extract
+from sheetnet.checks.verify import verify
+from sheetnet.errors import SheetNetError
+from tests.conftest import write_csv
+from tests.description_corpus import CASES
+from tests.tamper import alter_description, read_description
+
+#: Cases whose altered part verify does not need: it verifies, and says the description has problems.
+NOT_NEEDED_TO_VERIFY = {"negative block position", "block past the sheet's end", "original learning rate NaN",
+                        "original weight infinite", "names disagree with the layout", "stored data rows missing"}
+MEMORY_LIMIT_MB = 500
+TIME_LIMIT_S = 30
+
+_MEASURE = """
+import json, resource, subprocess, sys
+results = []
+for command in json.loads(sys.argv[1]):
+    done = subprocess.run([sys.executable, "-m", "sheetnet", *command], capture_output=True, text=True,
+                          timeout=float(sys.argv[2]))
+    results.append({"code": done.returncode, "out": done.stdout, "err": done.stderr})
+print(json.dumps({"results": results, "peak_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024}))
+"""
+
+
+def run_measured(commands: list[list[str]]) -> tuple[list[dict], float]:
+    """Run sheetnet commands one after another in child processes: their results and the largest
+    peak resident memory among them (MB)."""
+    done = subprocess.run([sys.executable, "-c", _MEASURE, json.dumps(commands), str(TIME_LIMIT_S)],
+                          capture_output=True, text=True, timeout=TIME_LIMIT_S * len(commands) + 30)
+    assert done.returncode == 0, done.stderr[-2000:]
+    report = json.loads(done.stdout)
+    return report["results"], report["peak_mb"]
+
+
+@pytest.fixture(scope="module")
+def book(tmp_path_factory) -> Path:
+    """A demo-size workbook: 120 cases, 4 inputs, a record of 6 epochs."""
+    from sheetnet.cli import main
+    from sheetnet.demo import DEMO_FLAGS, demo_csv_text
+
+    folder = tmp_path_factory.mktemp("untrusted")
+    data = folder / "data.csv"
+    data.write_text(demo_csv_text())
+    assert main(["build", str(data), *DEMO_FLAGS, "--quiet", "-o", str(folder / "book.xlsx")]) == 0
+    return folder / "book.xlsx"
+
+
+def _one_error_line(result: dict) -> str:
+    lines = result["err"].strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("sheetnet: error:"), result
+    assert "internal error" not in lines[0] and "Traceback" not in result["err"], result
+    return lines[0]
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_altered_description_ends_cleanly_on_every_command(case, book, tmp_path):
+    altered = alter_description(book, tmp_path / "altered.xlsx", CASES[case])
+    model, page, report = tmp_path / "model.json", tmp_path / "report.html", tmp_path / "audit.json"
+    commands = [["verify", str(altered), "--quiet"], ["audit", str(altered), "--quiet", "--json", str(report)],
+                ["extract", str(altered), "-o", str(model)], ["report", str(altered), "-o", str(page)]]
+    (verified, audited, extracted, reported), peak = run_measured(commands)
+    assert peak < MEMORY_LIMIT_MB, f"{case}: peak {peak:.0f} MB"
+
+    findings = json.loads(report.read_text())
+    assert audited["code"] == 3 and findings["counts"]["description"] >= 1, audited
+    assert "Layout description" in audited["out"]
+    if case in NOT_NEEDED_TO_VERIFY:
+        assert verified["code"] == 0 and "note: the layout description has" in verified["out"], verified
+        assert extracted["code"] == 0 and model.exists(), extracted
+    else:
+        assert verified["code"] == 2 and "cannot verify" in _one_error_line(verified), verified
+        assert extracted["code"] == 1 and not model.exists(), extracted
+        _one_error_line(extracted)
+        assert reported["code"] == 1 and not page.exists()
+        _one_error_line(reported)
+
+
+def test_problems_name_what_disagrees_with_what(book, tmp_path):
+    def more_units(data):
+        data["spec"]["units"][0] = 10_000_000
+        return data
+
+    report = audit(alter_description(book, tmp_path / "a.xlsx", more_units))
+    assert [f.cell for f in report.of("description")] == ["spec.units[0]"]
+    assert "10,000,000 is outside 1..16,382" in report.of("description")[0].note
+
+    def moved(data):
+        data["names"]["W_1"]["top"] = -5
+        return data
+
+    report = audit(alter_description(book, tmp_path / "b.xlsx", moved))
+    note = report.of("description")[0].note
+    assert report.of("description")[0].cell == "names.W_1" and "Parameters!B12" in note
+
+
+def test_a_description_claiming_more_rows_than_the_sheet_holds_is_refused(book, tmp_path):
+    """A consistent description (spec, sets and stored inputs all grown together) that asks for more
+    cases than the Scoring sheet holds: the sheet, not the description, bounds the work."""
+
+    def grown(data):
+        extra = 5_000
+        data["spec"]["n_cases"] += extra
+        data["spec"]["sets"] += ["holdout"] * extra
+        data["inputs"]["data"] += [data["inputs"]["data"][0]] * extra
+        return data
+
+    with pytest.raises(SheetNetError, match="sheet 'Scoring': the description needs"):
+        verify(alter_description(book, tmp_path / "a.xlsx", grown))
+
+
+def _random_mutation(rng: random.Random):
+    """Replace, delete or grow one random node of the description."""
+    junk = [None, -1, 0, 2**70, 1e308, float("nan"), float("-inf"), "", "x" * 300, [], {}, [[[]]], True,
+            {"sheet": "Parameters", "top": -1}, list(range(50))]
+
+    def mutate(data):
+        node, parent, key = data, None, None
+        for _ in range(rng.randint(1, 6)):
+            if isinstance(node, dict) and node:
+                key = rng.choice(sorted(node))
+            elif isinstance(node, list) and node:
+                key = rng.randrange(len(node))
+            else:
+                break
+            parent, node = node, node[key]
+        if parent is None:
+            return data
+        if rng.random() < 0.2 and isinstance(parent, dict):
+            del parent[key]
+        else:
+            parent[key] = rng.choice(junk)
+        return data
+
+    return mutate
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_random_alterations_never_escape_as_internal_errors(seed, book, tmp_path):
+    altered = alter_description(book, tmp_path / "r.xlsx", _random_mutation(random.Random(seed)))
+    for run in (lambda: verify(altered), lambda: audit(altered), lambda: extract(altered)):
+        with contextlib.suppress(SheetNetError):
+            run()
+
+
+# ---------------------------------------------------------------- signatures
+
+
+@pytest.fixture(scope="module")
+def signed(tmp_path_factory, book) -> dict[str, Path]:
+    from sheetnet.cli import main
+
+    folder = tmp_path_factory.mktemp("signed")
+    key, other = folder / "team.key", folder / "other.key"
+    assert main(["new-key", str(key)]) == 0 and main(["new-key", str(other)]) == 0
+    data = write_csv(folder / "d.csv", ["a", "b", "label"],
+                     [[0.1 * i, (i * 7 % 5) / 5, "yes" if i % 3 else "no"] for i in range(16)])
+    assert main(["build", str(data), "--target", "label", "--epochs", "2", "--quiet", "--sign-key", str(key),
+                 "-o", str(folder / "signed.xlsx")]) == 0
+    return {"book": folder / "signed.xlsx", "key": key, "other": other, "folder": folder}
+
+
+def test_new_key_is_private_random_and_never_overwritten(signed, run_cli):
+    key = signed["key"]
+    assert key.stat().st_mode & 0o777 == 0o600
+    assert len(bytes.fromhex(key.read_text().strip())) == 32
+    assert key.read_text() != signed["other"].read_text()
+    code, _, err = run_cli("new-key", key)
+    assert code == 2 and "exists" in err
+
+
+def test_short_or_shared_key_files(signed, tmp_path, run_cli):
+    short = tmp_path / "short.key"
+    short.write_text("abcd\n")
+    code, _, err = run_cli("verify", signed["book"], "--key", short)
+    assert code == 2 and "at least 32 bytes" in err
+    shared = tmp_path / "shared.key"
+    shared.write_text(signed["key"].read_text())
+    shared.chmod(0o644)
+    code, _, err = run_cli("verify", signed["book"], "--key", shared)
+    assert code == 0 and "can be read by other users" in err
+
+
+def test_signed_workbook_verifies_with_its_key(signed, run_cli):
+    code, out, _ = run_cli("verify", signed["book"], "--key", signed["key"])
+    assert code == 0 and "signature: VALID" in out
+    code, out, _ = run_cli("audit", signed["book"], "--key", signed["key"])
+    assert code == 0 and "signature valid" in out and "self-asserted" not in out
+
+
+def test_wrong_key_and_missing_signature_do_not_hold(signed, book, run_cli):
+    code, out, _ = run_cli("verify", signed["book"], "--key", signed["other"])
+    assert code == 1 and "signature: WRONG-KEY" in out
+    code, out, _ = run_cli("verify", book, "--key", signed["key"])
+    assert code == 1 and "signature: MISSING" in out
+    code, out, _ = run_cli("audit", book)
+    assert "self-asserted" in out and "--against ORIGINAL" in out
+
+
+def test_description_altered_after_signing_breaks_the_signature(signed, tmp_path, run_cli):
+    def quieter(data):
+        data["inputs"]["learning_rate"] = 0.7  # hides nothing yet: the file's rate is unchanged
+        return data
+
+    altered = alter_description(signed["book"], tmp_path / "a.xlsx", quieter)
+    code, out, _ = run_cli("verify", altered, "--key", signed["key"])
+    assert code == 1 and "signature: BROKEN" in out and "description was changed after signing" in out
+    code, out, _ = run_cli("audit", altered, "--key", signed["key"], "--json", tmp_path / "f.json")
+    report = json.loads((tmp_path / "f.json").read_text())
+    assert code == 3 and report["counts"]["signature"] == 1 and "signature broken" in report["signature"][0]["note"]
+
+    def untrusted(data):
+        data["spec"]["units"][0] = 10_000_000
+        return data
+
+    code, _, err = run_cli("verify", alter_description(signed["book"], tmp_path / "b.xlsx", untrusted),
+                           "--key", signed["key"])
+    assert code == 2 and "signature broken" in err and len(err.strip().splitlines()) == 1
+
+
+def test_signature_survives_a_round_trip_of_its_own_text(signed):
+    """Re-serialising the stored description (as the check does) gives the signed text exactly."""
+    from sheetnet.book.signing import canonical_json, mac, read_key
+
+    data = read_description(signed["book"])
+    assert mac(data, read_key(signed["key"])) == data["signature"]["mac"]
+    assert json.loads(canonical_json(data)) == {k: v for k, v in data.items() if k != "signature"}
