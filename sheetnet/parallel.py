@@ -14,7 +14,10 @@ from sheetnet.errors import EvaluationError
 
 
 def can_fork() -> bool:
-    return "fork" in multiprocessing.get_all_start_methods() and (os.cpu_count() or 1) >= 2
+    """A child can be forked here: the platform forks, there are two cores, and this process is not
+    itself a (daemonic) worker, which may not have children."""
+    return "fork" in multiprocessing.get_all_start_methods() and (os.cpu_count() or 1) >= 2 and \
+        not multiprocessing.current_process().daemon
 
 
 class Background:

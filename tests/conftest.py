@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import shutil
 from pathlib import Path
 
 import pytest
@@ -10,6 +11,24 @@ import pytest
 os.environ.setdefault("TQDM_DISABLE", "1")
 
 from sheetnet.cli import main
+
+REQUIRE_LIBREOFFICE = os.environ.get("SHEETNET_REQUIRE_LIBREOFFICE") == "1"
+
+
+def pytest_runtest_setup(item) -> None:
+    """Tests marked ``libreoffice`` need soffice, and ``libreoffice_bridge`` also its Python bridge:
+    skipped without them, except where SHEETNET_REQUIRE_LIBREOFFICE=1 (CI), where they fail."""
+    from tests.lo_edit import libreoffice_bridge_available
+
+    missing = None
+    if item.get_closest_marker("libreoffice") and shutil.which("soffice") is None:
+        missing = "LibreOffice (soffice) is not installed"
+    elif item.get_closest_marker("libreoffice_bridge") and not libreoffice_bridge_available():
+        missing = "LibreOffice or its Python bridge (python3-uno) is not installed"
+    if missing and REQUIRE_LIBREOFFICE:
+        pytest.fail(f"{missing}, and SHEETNET_REQUIRE_LIBREOFFICE=1 requires it")
+    if missing:
+        pytest.skip(missing)
 
 
 def write_csv(path: Path, header: list[str], rows: list[list[object]]) -> Path:

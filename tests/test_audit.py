@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import shutil
 import zipfile
 from pathlib import Path
 
@@ -16,8 +15,6 @@ import pytest
 from sheetnet.net.model import load_model
 from tests.test_workbook import CONFIGS, build
 from tests.test_workbook_engines import defined_block
-
-HAS_LO = shutil.which("soffice") is not None
 
 
 @pytest.fixture
@@ -48,7 +45,7 @@ def test_untouched_workbook_has_no_findings(book, run_cli):
 
 
 @pytest.mark.slow
-@pytest.mark.skipif(not HAS_LO, reason="LibreOffice is not installed")
+@pytest.mark.libreoffice
 def test_libreoffice_round_trip_of_untouched_workbook_has_no_findings(book, tmp_path, run_cli):
     from sheetnet.engines.libreoffice import recalculate
 
@@ -215,7 +212,7 @@ def test_extract_after_training_recalculates_an_edited_record(book, tmp_path, ru
 
 
 @pytest.mark.slow
-@pytest.mark.skipif(not HAS_LO, reason="LibreOffice is not installed")
+@pytest.mark.libreoffice
 def test_edits_survive_a_libreoffice_round_trip(book, tmp_path, run_cli):
     from sheetnet.engines.libreoffice import recalculate
 

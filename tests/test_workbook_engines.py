@@ -4,7 +4,6 @@
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 import numpy as np
@@ -24,7 +23,7 @@ from tests.bookcheck import (
 from tests.conftest import write_csv
 from tests.test_workbook import defined_block
 
-pytestmark = pytest.mark.skipif(shutil.which("soffice") is None, reason="LibreOffice is not installed")
+pytestmark = pytest.mark.libreoffice
 
 RNG = np.random.default_rng(5)
 
