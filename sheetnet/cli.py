@@ -400,12 +400,25 @@ def cmd_verify(args: argparse.Namespace) -> int:
         bar = Progress(VERIFY_STAGES, "verifying", quiet=args.quiet)
         report = verify(args.book, engine=args.engine, tolerance=args.tolerance, progress=bar, key=key)
     except (WorkbookFormatError, EvaluationError) as exc:
-        raise CannotVerifyError(f"cannot verify: {exc}{_signature_note(args.book, key, exc)}") from None
+        reason = f"cannot verify: {exc}{_signature_note(args.book, key, exc)}"
+        if args.json:
+            _write_json(args.json, {"file": str(args.book), "ok": False, "verdict": "cannot-verify",
+                                    "reason": reason}, args.force)
+        raise CannotVerifyError(reason) from None
     print("\n".join(verify_lines(report)))
     if args.json:
-        text = json.dumps(report.to_dict(), indent=2, default=str) + "\n"
-        write_text_atomic(args.json, text, force=args.force)
-    return 0 if report.ok else 1
+        _write_json(args.json, report.to_dict(), args.force)
+    if report.signature is not None and not report.signature.holds:
+        return 1
+    return VERIFY_EXIT[report.verdict]
+
+
+#: verify's exit code by verdict (2, cannot verify, comes from CannotVerifyError).
+VERIFY_EXIT = {"ok": 0, "mismatch": 1, "stale": 4}
+
+
+def _write_json(path: Path, data: dict, force: bool) -> None:
+    write_text_atomic(path, json.dumps(data, indent=2, default=str) + "\n", force=force)
 
 
 def _signature_note(path: Path, key: bytes | None, error: Exception) -> str:
@@ -427,7 +440,7 @@ def cmd_audit(args: argparse.Namespace) -> int:
     bar(1)
     print("\n".join(audit_lines(report)))
     if args.json:
-        write_text_atomic(args.json, json.dumps(report.to_dict(), indent=2, default=str) + "\n", force=args.force)
+        _write_json(args.json, report.to_dict(), args.force)
     if args.annotate:
         annotate(args.book, report, args.annotate, force=args.force)
         print(f"annotated copy written to {args.annotate}")

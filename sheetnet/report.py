@@ -52,10 +52,16 @@ def verify_lines(report: VerifyReport) -> list[str]:
     if report.signature is not None:
         lines.append(f"signature: {report.signature.status.upper()} (key id {report.signature.key_id}): "
                      f"{report.signature.detail}")
-    if all(c.ok for c in report.comparisons):
+    signature = "" if report.signature is None or report.signature.holds else "; but the signature does not hold"
+    if report.verdict == "ok":
         cells = report.comparisons[0].cells_compared
-        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer"
-                     + ("" if report.ok else "; but the signature does not hold"))
+        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer{signature}")
+    elif report.verdict == "stale":
+        stale = max(report.comparisons, key=lambda c: c.stale_count)
+        sheets = ", ".join(f"{sheet} {count:,}" for sheet, count in stale.stale_per_sheet.items())
+        lines.append(f"verdict: STALE: the formulas reproduce the reference trainer, but {stale.stale_count:,} saved "
+                     f"value(s) are out of date ({sheets}); opening and saving the file in a spreadsheet application "
+                     f"refreshes them{signature}")
     else:
         lines.append("verdict: FAILED: the workbook does not reproduce the reference trainer (see above)")
     return lines

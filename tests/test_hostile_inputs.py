@@ -5,6 +5,7 @@ Every bad file is generated here (none is committed)."""
 from __future__ import annotations
 
 import hashlib
+import json
 import zipfile
 from pathlib import Path
 
@@ -129,6 +130,11 @@ def test_bad_workbooks_are_refused(case, command, assets, tmp_path, capsys):
     out = tmp_path / "out.json"
     args = {"verify": ["verify", path, "--json", out], "audit": ["audit", path, "--json", out],
             "extract": ["extract", path, "-o", out]}[command]
+    if command == "verify":  # the report says why, with the verdict cannot-verify
+        _check(capsys, args, [path] if path.is_file() else [], [], needle)
+        report = json.loads(out.read_text())
+        assert report["verdict"] == "cannot-verify" and needle.lower() in report["reason"].lower()
+        return
     _check(capsys, args, [path] if path.is_file() else [], [out], needle)
 
 

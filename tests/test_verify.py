@@ -87,9 +87,12 @@ def test_stale_cached_value_is_reported(book, tmp_path, run_cli):
             if item.filename == "xl/worksheets/sheet3.xml":  # the Calculator sheet
                 data = re.sub(rb"(<f>[^<]*</f><v>)[^<]*(</v>)", rb"\g<1>42\g<2>", data, count=1)
             dst.writestr(item, data)
-    code, _out, data = _verify(run_cli, stale)
-    assert code == 1 and data["stale_count"] == 1 and data["stale_cached"][0]["cached"] == 42.0
+    code, out, data = _verify(run_cli, stale)
+    assert code == 4 and data["verdict"] == "stale" and data["ok"] is False
+    assert data["stale_count"] == 1 and data["stale_cached"][0]["cached"] == 42.0
+    assert data["stale_per_sheet"] == {"Calculator": 1}
     assert not data["formula_differences"] and not data["mismatch_count"]
+    assert "verdict: STALE" in out and "(Calculator 1)" in out and "refreshes them" in out
 
 
 @pytest.mark.parametrize("content", [b"not a zip at all", None])
@@ -183,3 +186,24 @@ def test_libreoffice_engine_on_a_workbook_of_300k_formula_cells(tmp_path, run_cl
     code, out, report = _verify(run_cli, book, "--engine", "libreoffice")
     assert code == 0, out
     assert report["cells_compared"] == cells and report["engine"] == "libreoffice"
+
+
+def test_input_changed_without_recalculation_is_stale_not_a_mismatch(tmp_path, run_cli):
+    """A program that edits a number and keeps every saved value (no recalculation): the formulas
+    still reproduce the reference on the new input; only the saved values are out of date."""
+    book = build(tmp_path, run_cli, *CONFIGS["binary-ce-batch1"])
+    stale = tmp_path / "kept.xlsx"
+    with zipfile.ZipFile(book) as src, zipfile.ZipFile(stale, "w", zipfile.ZIP_DEFLATED) as dst:
+        for item in src.infolist():
+            data = src.read(item.filename)
+            if item.filename == "xl/worksheets/sheet2.xml":  # the Parameters sheet: first weight of W_1
+                data, done = re.subn(rb'(<c r="B12" s="\d+"><v>)[^<]*(</v>)', rb"\g<1>0.75\g<2>", data)
+                assert done == 1
+            dst.writestr(item, data)
+    code, out, data = _verify(run_cli, stale)
+    assert code == 4 and data["verdict"] == "stale", out
+    assert data["mismatch_count"] == 0 and not data["formula_differences"]
+    assert set(data["stale_per_sheet"]) >= {"Calculator", "Scoring"} and data["stale_count"] > 10
+    code, out, _ = run_cli("audit", stale, "--json", tmp_path / "a.json")
+    report = json.loads((tmp_path / "a.json").read_text())
+    assert report["counts"]["input_edits"] == 1 and report["counts"]["risks"] == data["stale_count"]

@@ -69,6 +69,11 @@ class AuditReport:
         if finding.kind != "value_mismatches" or self.counts[finding.kind] <= VALUE_LIMIT:
             self.findings.append(finding)
 
+    def count_unlisted(self, kind: str, count: int) -> None:
+        """Findings counted but not listed (a report lists at most a few thousand of one kind)."""
+        if count > 0:
+            self.counts[kind] = self.counts.get(kind, 0) + count
+
     def of(self, kind: str) -> list[Finding]:
         return [f for f in self.findings if f.kind == kind]
 
@@ -472,14 +477,14 @@ def check_values(report: AuditReport, book: Workbook, layout: BookLayout, mappin
     for item in comparison.mismatches:
         report.add(Finding(mapping[item["sheet"]], item["cell"], "value_mismatches", item["expected"], item["found"],
                            "recalculated value differs from the reference trainer on the file's inputs"))
-    for _ in range(comparison.mismatch_count - len(comparison.mismatches)):
-        report.counts["value_mismatches"] = report.counts.get("value_mismatches", 0) + 1
+    report.count_unlisted("value_mismatches", comparison.mismatch_count - len(comparison.mismatches))
     steps = [record_rows[_row_of(m["cell"])] for m in comparison.mismatches
              if m["sheet"] == L.RECORD and _row_of(m["cell"]) in record_rows]
     report.first_diverging_step = min(steps) if steps else None
     for item in comparison.stale_cached:
         report.add(Finding(mapping[item["sheet"]], item["cell"], "risks", item["recalculated"], item["cached"],
                            "stale cached value: viewers that do not recalculate show the wrong number"))
+    report.count_unlisted("risks", comparison.stale_count - len(comparison.stale_cached))
     for item in comparison.errors:
         report.add(Finding(mapping[item["sheet"]], item["cell"], "risks", None, item["error"],
                            "the recalculated cell is a spreadsheet error"))

@@ -94,21 +94,32 @@ class Comparison:
     errors: list[dict] = field(default_factory=list)
     stale_cached: list[dict] = field(default_factory=list)
     stale_count: int = 0
+    stale_per_sheet: dict[str, int] = field(default_factory=dict)
     general_path: list[str] = field(default_factory=list)
 
     @property
+    def reproduces(self) -> bool:
+        """The formulas are sheetnet's and their values equal the reference (saved values aside)."""
+        return not (self.mismatch_count or self.formula_differences or self.errors)
+
+    @property
+    def verdict(self) -> str:
+        return "mismatch" if not self.reproduces else "stale" if self.stale_count else "ok"
+
+    @property
     def ok(self) -> bool:
-        return not (self.mismatch_count or self.formula_differences or self.errors or self.stale_count)
+        return self.verdict == "ok"
 
     def to_dict(self) -> dict:
         return {
-            "ok": self.ok, "engine": self.engine, "tolerance": self.tolerance,
+            "ok": self.ok, "verdict": self.verdict, "engine": self.engine, "tolerance": self.tolerance,
             "cells_compared": self.cells_compared, "cells_per_sheet": self.per_sheet,
             "max_abs_diff": self.max_abs_diff, "max_abs_diff_cell": self.max_abs_where,
             "max_rel_diff": self.max_rel_diff, "max_rel_diff_cell": self.max_rel_where,
             "mismatches": self.mismatches, "mismatch_count": self.mismatch_count,
             "first_mismatch": self.first_mismatch, "formula_differences": self.formula_differences,
             "errors": self.errors, "stale_cached": self.stale_cached, "stale_count": self.stale_count,
+            "stale_per_sheet": self.stale_per_sheet,
             "general_path_cells": self.general_path,
         }
 
@@ -250,6 +261,7 @@ def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:
     elif agree(cached, _plain(value), report.tolerance):
         return
     report.stale_count += 1
+    report.stale_per_sheet[sheet] = report.stale_per_sheet.get(sheet, 0) + 1
     if len(report.stale_cached) < LIST_LIMIT:
         report.stale_cached.append({"sheet": sheet, "cell": a1(*pos), "cached": _plain(cached),
                                     "recalculated": _plain(value)})
@@ -289,15 +301,18 @@ class VerifyReport:
 
     @property
     def verdict(self) -> str:
-        return "ok" if all(c.ok for c in self.comparisons) else "mismatch"
+        """ok, stale (the formulas reproduce the reference but saved values are out of date) or
+        mismatch, the worst over the engines."""
+        verdicts = {c.verdict for c in self.comparisons}
+        return next(v for v in ("mismatch", "stale", "ok") if v in verdicts or v == "ok")
 
     @property
     def ok(self) -> bool:
-        return all(c.ok for c in self.comparisons) and (self.signature is None or self.signature.holds)
+        return self.verdict == "ok" and (self.signature is None or self.signature.holds)
 
     def to_dict(self) -> dict:
         first = self.comparisons[0].to_dict()
-        common = {"file": str(self.path), "description_problems": self.description_problems,
+        common = {"file": str(self.path), "verdict": self.verdict, "description_problems": self.description_problems,
                   "signature": None if self.signature is None else self.signature.to_dict()}
         if len(self.comparisons) == 1:
             return {**first, **common, "ok": self.ok}
