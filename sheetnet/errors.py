@@ -44,6 +44,15 @@ class DescriptionError(WorkbookFormatError):
         self.problems = problems
 
 
+class InvalidInputsError(WorkbookFormatError):
+    """Input cells hold values the network cannot use (a learning rate of 0, text for a weight...).
+    ``invalid`` lists them (``sheetnet.book.read.InvalidInput``)."""
+
+    def __init__(self, message: str, invalid: list) -> None:
+        super().__init__(message)
+        self.invalid = invalid
+
+
 class CannotVerifyError(SheetNetError):
     """A workbook that cannot be verified at all (not a sheetnet workbook, unreadable, no engine)."""
 

@@ -74,7 +74,7 @@ AUDIT_TITLES = {"description": "Layout description", "signature": "Signature", "
 
 def audit_lines(report) -> list[str]:
     """Findings grouped by kind, most consequential first, and a one-line verdict."""
-    from sheetnet.checks.audit import KINDS
+    from sheetnet.checks.findings import KINDS
 
     lines = [f"auditing {report.path} against the {report.reference}"]
     for kind in KINDS:

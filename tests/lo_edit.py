@@ -15,6 +15,7 @@ Operations (a list of dicts; rows and columns 0-based):
   {"op": "insert_columns" | "delete_columns", "sheet": S, "at": 2, "count": 1}
   {"op": "rename", "sheet": S, "to": "New name"}
   {"op": "sort", "sheet": S, "range": "A15:K134", "column": 3, "descending": true}
+  {"op": "move", "sheet": S, "range": "B12:F14", "to": "H30"}    cut and paste a block
 """
 
 from __future__ import annotations
@@ -111,6 +112,9 @@ def _apply(doc, op: dict) -> None:
         sheet.Columns.removeByIndex(op["at"], op.get("count", 1))
     elif kind == "rename":
         sheet.setName(op["to"])
+    elif kind == "move":
+        source = sheet.getCellRangeByName(op["range"]).getRangeAddress()
+        sheet.moveRange(sheet.getCellRangeByName(op["to"]).getCellAddress(), source)
     elif kind == "sort":
         _sort(sheet.getCellRangeByName(op["range"]), op["column"], op.get("descending", False))
     else:

@@ -6,10 +6,11 @@ from __future__ import annotations
 from pathlib import Path
 
 from sheetnet.book.addresses import quote_sheet
-from sheetnet.checks.audit import AuditReport
+from sheetnet.checks.findings import AuditReport
 from sheetnet.files import write_atomic
 
-FILLS = {"structural": "F4B6B6", "formula_edits": "F8CBAD", "value_mismatches": "FFE699", "input_edits": "BDD7EE",
+FILLS = {"description": "F4B6B6", "signature": "F4B6B6", "structural": "F4B6B6", "formula_edits": "F8CBAD",
+         "value_mismatches": "FFE699", "input_edits": "BDD7EE",
          "risks": "D9C3E9"}
 FINDINGS_SHEET = "Audit findings"
 

@@ -9,7 +9,7 @@ import numpy as np
 
 from sheetnet.book.describe import Fingerprints
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.read import input_cells, read_inputs, read_inputs_checked, read_layout
 from sheetnet.book.untrusted import Description
 from sheetnet.book.xlsxread import Workbook, read_workbook
 from sheetnet.errors import WorkbookFormatError
@@ -29,13 +29,11 @@ def formula_fingerprints(book: Workbook) -> dict[str, str]:
 
 def unchanged_since_build(book: Workbook, layout: BookLayout, description: Description) -> bool:
     """No formula and no input differs from what build wrote (so build's cached values are current)."""
-    from sheetnet.checks.audit import input_cells
-
     if description.original is None or description.problems_in("fingerprints") or \
             formula_fingerprints(book) != description.data["fingerprints"]["formulas"]:
         return False
     original = input_cells(layout, description.original)
-    now = input_cells(layout, read_inputs(book, layout))
+    now = input_cells(layout, read_inputs_checked(book, layout)[0])
     return all(a[2] == b[2] for a, b in zip(original, now, strict=True))
 
 
@@ -74,7 +72,8 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
     with paused_gc():
         book = read_workbook(path)
         layout, description = read_layout(book)
-        inputs = read_inputs(book, layout)
+        needed = ("parameters", "scaling", "training", "data") if after_training else ("parameters", "scaling")
+        inputs = read_inputs(book, layout, groups=needed)
         spec = layout.spec
         note = "parameters read from the Parameters sheet"
         layers = inputs.layers

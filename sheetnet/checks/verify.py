@@ -10,16 +10,13 @@ errors are listed as well.
 from __future__ import annotations
 
 import itertools
-import math
 import tempfile
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
-
 from sheetnet.book import plan
-from sheetnet.book.addresses import a1, quote_sheet
+from sheetnet.book.addresses import Cell, a1, quote_sheet
 from sheetnet.book.canonical import normalize_formula
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
@@ -27,14 +24,14 @@ from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
 from sheetnet.book.untrusted import read_description
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
+from sheetnet.checks.align import Alignment
+from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
 
 ENGINES = ("embedded", "libreoffice", "both")
 DEFAULT_TOLERANCE = 1e-9
-#: At most this many cells of each kind are listed in a report (all are counted).
-LIST_LIMIT = 1000
 
 def expected_entries(layout: BookLayout, numbers) -> Iterator[tuple[str, plan.Entry]]:
     """(sheet name, entry) for every cell sheetnet writes, from the layout and the reference numbers."""
@@ -62,17 +59,6 @@ def agree(found, expected, tolerance: float) -> bool:
 
 def _cell(sheet: str, pos: tuple[int, int]) -> str:
     return f"{quote_sheet(sheet)}!{a1(*pos)}"
-
-
-def _plain(value):
-    """A value as JSON can hold it: error codes as text, numpy scalars as Python numbers."""
-    if isinstance(value, CellError):
-        return value.code
-    if isinstance(value, np.floating | np.integer):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return str(value)
-    return value
 
 
 @dataclass
@@ -124,13 +110,28 @@ class Comparison:
         }
 
 
-def expected_formulas(book: Workbook, layout: BookLayout) -> list[tuple[str, int, int, str, object]]:
+def expected_formulas(book: Workbook, layout: BookLayout, alignment: Alignment | None = None
+                      ) -> list[tuple[str, int, int, str, object]]:
     """(sheet, row, col, formula, reference value) of every formula cell sheetnet writes, for the
-    inputs the file holds now (the reference trainer and scorer run here)."""
-    numbers = compute(layout.spec, read_inputs(book, layout))
+    inputs the file holds now (the reference trainer and scorer run here), where ``alignment`` says
+    each cell is now and with its references moved as the application moved them."""
+    moved = alignment is not None and not alignment.identity
+    inputs = read_inputs(book, layout, locate=alignment.locate if moved else None)  # InvalidInputsError names a cell
+    numbers = compute(layout.spec, inputs)
     as_float = float
-    return [(sheet, e.row, e.col, e.content, as_float(e.value) if isinstance(e.value, float) else e.value)
-            for sheet, e in expected_entries(layout, numbers) if e.role == "formula"]
+    if not moved:
+        return [(sheet, e.row, e.col, e.content, as_float(e.value) if isinstance(e.value, float) else e.value)
+                for sheet, e in expected_entries(layout, numbers) if e.role == "formula"]
+    items = []
+    for sheet, e in expected_entries(layout, numbers):
+        if e.role != "formula":
+            continue
+        here = Cell(sheet, e.row, e.col)
+        where = alignment.locate(here)
+        if where is not None:
+            value = as_float(e.value) if isinstance(e.value, float) else e.value
+            items.append((where.sheet, where.row, where.col, alignment.translate(e.content, here), value))
+    return items
 
 
 @dataclass
@@ -227,7 +228,7 @@ def _record_largest(report: Comparison, sheet: str, pos, diff: float, scale: flo
 
 def _mismatch(report: Comparison, sheet: str, pos, value, expected) -> None:
     report.mismatch_count += 1
-    item = {"sheet": sheet, "cell": a1(*pos), "expected": _plain(expected), "found": _plain(value)}
+    item = {"sheet": sheet, "cell": a1(*pos), "expected": plain(expected), "found": plain(value)}
     if report.first_mismatch is None:
         report.first_mismatch = item
     if len(report.mismatches) < LIST_LIMIT:
@@ -238,7 +239,7 @@ def _formula_difference(sheet: str, pos, expected: str, found: str | None, cells
     if found is None:
         value = None if cells is None else cells.values.get(pos)
         note = "a constant where a formula belongs" if value is not None else "the formula is missing"
-        return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": _plain(value), "note": note}
+        return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": plain(value), "note": note}
     if normalize_formula(found) != normalize_formula(expected):
         return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": "=" + found, "note": "formula changed"}
     return None  # written differently (spaces, case, number spelling), the same formula
@@ -258,13 +259,13 @@ def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:
     if type(cached) is float and type(value) is float:
         if abs(cached - value) <= report.tolerance * max(1.0, abs(value)):
             return
-    elif agree(cached, _plain(value), report.tolerance):
+    elif agree(cached, plain(value), report.tolerance):
         return
     report.stale_count += 1
     report.stale_per_sheet[sheet] = report.stale_per_sheet.get(sheet, 0) + 1
     if len(report.stale_cached) < LIST_LIMIT:
-        report.stale_cached.append({"sheet": sheet, "cell": a1(*pos), "cached": _plain(cached),
-                                    "recalculated": _plain(value)})
+        report.stale_cached.append({"sheet": sheet, "cell": a1(*pos), "cached": plain(cached),
+                                    "recalculated": plain(value)})
 
 
 def _extra_formulas(book: Workbook, expected: set) -> list[dict]:

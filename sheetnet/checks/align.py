@@ -1,0 +1,518 @@
+"""Re-alignment: where each cell of the layout is in a workbook that a spreadsheet application has
+restructured (rows or columns inserted or deleted, sheets renamed, table rows sorted).
+
+A spreadsheet application moves cells and rewrites every reference to them, and moves defined
+names with their cells. So the comparison must not look for a cell where ``build`` put it, but
+where the application moved it, and must expect each formula with its references moved the same
+way. This module finds, per sheet, a map from the layout's rows and columns to the file's, from
+anchors whose identity does not depend on position:
+
+* texts sheetnet wrote outside the tables' bodies (titles, headers, labels), paired in reading
+  order;
+* defined names (the application moves them with their blocks);
+* the tables' row labels (case numbers; step and case of the training record; epochs), which move
+  with their rows, also when rows are sorted.
+
+Rows and columns are whole-sheet operations, so one row map and one column map per sheet follow
+insertions and deletions; a permutation of table rows (a sort) is followed for the cells that
+moved, while references from outside the sorted rows keep their positions, as applications do by
+default. What cannot be followed (a sheet that is missing, cells cut and pasted elsewhere) is
+reported and left out.
+"""
+
+from __future__ import annotations
+
+import re
+from collections import Counter
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from sheetnet.book import layout as L
+from sheetnet.book.addresses import Block, Cell, a1, column_index, column_letters, parse_range, quote_sheet
+from sheetnet.book.layout import BookLayout, Table
+from sheetnet.book.xlsxread import Workbook
+
+#: Text roles of the plan that serve as anchors (outside the tables' bodies).
+ANCHOR_ROLES = ("title", "header", "label", "text")
+
+
+@dataclass(frozen=True)
+class Change:
+    """One structural change, reported once: on the file's sheet, at the file's cell."""
+
+    sheet: str
+    cell: str
+    note: str
+
+
+@dataclass
+class SheetMap:
+    """Expected row/column -> the file's (-1: gone). ``reordered`` rows moved as a permutation."""
+
+    found: str
+    rows: np.ndarray
+    cols: np.ndarray
+    reordered: frozenset = frozenset()
+    inserted_rows: frozenset = frozenset()  # the file's rows that no expected row maps to
+    inserted_cols: frozenset = frozenset()
+
+    @property
+    def identity(self) -> bool:
+        return not self.reordered and bool(np.all(self.rows == np.arange(len(self.rows)))) and \
+            bool(np.all(self.cols == np.arange(len(self.cols))))
+
+    def row(self, r: int) -> int:
+        return int(self.rows[r]) if 0 <= r < len(self.rows) else r + self._row_tail()
+
+    def col(self, c: int) -> int:
+        return int(self.cols[c]) if 0 <= c < len(self.cols) else c + self._col_tail()
+
+    def _row_tail(self) -> int:
+        valid = self.rows[self.rows >= 0]
+        return int(valid[-1] - np.flatnonzero(self.rows >= 0)[-1]) if valid.size else 0
+
+    def _col_tail(self) -> int:
+        valid = self.cols[self.cols >= 0]
+        return int(valid[-1] - np.flatnonzero(self.cols >= 0)[-1]) if valid.size else 0
+
+
+@dataclass
+class Alignment:
+    """Where every layout cell is now. ``sheets``: expected sheet -> its map (missing sheets absent)."""
+
+    sheets: dict[str, SheetMap] = field(default_factory=dict)
+    moves: dict[str, list[tuple[Block, Block]]] = field(default_factory=dict)  # expected sheet -> (from, to)
+    changes: list[Change] = field(default_factory=list)
+    missing: list[str] = field(default_factory=list)
+    added: list[str] = field(default_factory=list)
+
+    @property
+    def identity(self) -> bool:
+        return not self.missing and not self.moves and all(m.found == s and m.identity for s, m in self.sheets.items())
+
+    def _moved(self, sheet: str, row: int, col: int) -> tuple[int, int] | None:
+        """Where a cell of a block that was cut and pasted elsewhere is now (None: not in one)."""
+        for source, target in self.moves.get(sheet, ()):
+            if source.top <= row <= source.bottom and source.left <= col <= source.right:
+                return target.top + row - source.top, target.left + col - source.left
+        return None
+
+    @property
+    def reordered(self) -> list[str]:
+        return [sheet for sheet, m in self.sheets.items() if m.reordered]
+
+    def sheet_name(self, sheet: str) -> str | None:
+        m = self.sheets.get(sheet)
+        return None if m is None else m.found
+
+    def locate(self, cell: Cell) -> Cell | None:
+        m = self.sheets.get(cell.sheet)
+        if m is None:
+            return None
+        moved = self._moved(cell.sheet, cell.row, cell.col)
+        row, col = moved if moved is not None else (m.row(cell.row), m.col(cell.col))
+        return None if row < 0 or col < 0 else Cell(m.found, row, col)
+
+    def locate_block(self, block: Block) -> Block | None:
+        """Where a block is now (a range keeps its corners; rows inserted inside widen it)."""
+        m = self.sheets.get(block.sheet)
+        if m is None:
+            return None
+        first = self._moved(block.sheet, block.top, block.left)
+        last = self._moved(block.sheet, block.bottom, block.right)
+        if first is not None and last is not None:
+            return Block(m.found, first[0], first[1], last[0] - first[0] + 1, last[1] - first[1] + 1)
+        rows = _span(m.rows, block.top, block.bottom, m.row)
+        cols = _span(m.cols, block.left, block.right, m.col)
+        if rows is None or cols is None:
+            return None
+        return Block(m.found, rows[0], cols[0], rows[1] - rows[0] + 1, cols[1] - cols[0] + 1)
+
+    def translate(self, formula: str, here: Cell) -> str:
+        """Expected formula text (written at ``here`` in the layout) as the application rewrote it."""
+        return _REF.sub(lambda match: self._reference(match, here), formula)
+
+    def _reference(self, match: re.Match, here: Cell) -> str:
+        if match.group("string"):
+            return match.group("string")
+        prefix = match.group("sheet")
+        sheet = _unquote(prefix[:-1]) if prefix else here.sheet
+        m = self.sheets.get(sheet)
+        if m is None:
+            return match.group(0)
+        r0, c0 = int(match.group("r0")) - 1, column_index(match.group("c0"))
+        if match.group("c1") is None:
+            moved = self._point(m, r0, c0, here, sheet, bool(match.group("rd0")))
+            text = "#REF!" if moved is None else _a1(moved, match.group("cd0"), match.group("rd0"))
+        else:
+            r1, c1 = int(match.group("r1")) - 1, column_index(match.group("c1"))
+            first, last = self._moved(sheet, r0, c0), self._moved(sheet, r1, c1)
+            if first is not None and last is not None:
+                return self._prefixed(prefix, m.found, _a1(first, match.group("cd0"), match.group("rd0")) + ":" +
+                                      _a1(last, match.group("cd1"), match.group("rd1")))
+            if self._moves_with_sort(m, here, sheet, r0) and self._moves_with_sort(m, here, sheet, r1):
+                first = self._point(m, r0, c0, here, sheet, bool(match.group("rd0")))
+                last = self._point(m, r1, c1, here, sheet, bool(match.group("rd1")))
+                rows = None if first is None or last is None else (first[0], last[0])
+            elif m.reordered and (r0 in m.reordered or r1 in m.reordered):
+                rows = (r0, r1)  # a range over sorted rows, from outside them: its position is kept
+            else:
+                rows = _span(m.rows, r0, r1, m.row)
+            cols = _span(m.cols, c0, c1, m.col)
+            if rows is None or cols is None:
+                text = "#REF!"
+            else:
+                text = (_a1((rows[0], cols[0]), match.group("cd0"), match.group("rd0")) + ":" +
+                        _a1((rows[1], cols[1]), match.group("cd1"), match.group("rd1")))
+        return self._prefixed(prefix, m.found, text)
+
+    @staticmethod
+    def _prefixed(prefix: str | None, sheet: str, text: str) -> str:
+        return f"{quote_sheet(sheet)}!{text}" if prefix and text != "#REF!" else text
+
+    def _point(self, m: SheetMap, row: int, col: int, here: Cell, sheet: str, absolute_row: bool):
+        moved = self._moved(sheet, row, col)
+        if moved is not None:
+            return moved
+        if m.reordered and row in m.reordered:
+            if self._moves_with_sort(m, here, sheet, row) and not absolute_row:
+                moved_here = m.row(here.row)  # a relative reference moves with its row in a sort
+                return None if moved_here < 0 or m.col(col) < 0 else (moved_here + row - here.row, m.col(col))
+            return (row, m.col(col)) if m.col(col) >= 0 else None  # from outside: the position is kept
+        r, c = m.row(row), m.col(col)
+        return None if r < 0 or c < 0 else (r, c)
+
+    @staticmethod
+    def _moves_with_sort(m: SheetMap, here: Cell, sheet: str, row: int) -> bool:
+        """A reference from a sorted row to a sorted row of the same sheet travels with its row."""
+        return bool(m.reordered) and here.sheet == sheet and here.row in m.reordered and row in m.reordered
+
+
+_REF = re.compile(
+    r"""(?P<string>"(?:[^"]|"")*")|(?P<sheet>(?:'(?:[^']|'')+'|[A-Za-z_][\w.]*)!)?"""
+    r"""(?<![\w.$])(?P<cd0>\$?)(?P<c0>[A-Z]{1,3})(?P<rd0>\$?)(?P<r0>[0-9]+)"""
+    r"""(?::(?P<cd1>\$?)(?P<c1>[A-Z]{1,3})(?P<rd1>\$?)(?P<r1>[0-9]+))?(?![\w(!])""")
+
+
+def _unquote(text: str) -> str:
+    return text[1:-1].replace("''", "'") if text.startswith("'") else text
+
+
+def _a1(pos: tuple[int, int], col_dollar: str, row_dollar: str) -> str:
+    return f"{col_dollar}{column_letters(pos[1])}{row_dollar}{pos[0] + 1}"
+
+
+def _span(mapping: np.ndarray, first: int, last: int, point) -> tuple[int, int] | None:
+    """Where a range first..last is now: its first and last surviving members (a range shrinks when
+    its end is deleted and widens when something is inserted inside it)."""
+    if first >= len(mapping) or last < 0:
+        return (point(first), point(last)) if point(first) >= 0 and point(last) >= 0 else None
+    window = mapping[max(first, 0):min(last, len(mapping) - 1) + 1]
+    alive = window[window >= 0]
+    if not alive.size:
+        return None
+    low, high = int(alive.min()), int(alive.max())
+    if last >= len(mapping):
+        high = max(high, point(last))
+    return low, high
+
+
+# ---------------------------------------------------------------- finding the maps
+
+
+def align(book: Workbook, layout: BookLayout, entries: Iterable[tuple[str, object]]) -> Alignment:
+    """The alignment of ``book`` to ``layout``; ``entries`` are the plan's (sheet, entry) pairs (only
+    their positions and constant texts are used)."""
+    anchors = _anchor_texts(layout, entries)
+    alignment = Alignment()
+    mapping = _map_sheets(alignment, book, layout, anchors)
+    extents = _extents(layout)
+    for sheet, found in mapping.items():
+        votes = _Votes()
+        cells = book.sheets[found].values
+        _text_votes(votes, anchors.get(sheet, []), cells)
+        for table, labels in _tables(layout):
+            if table.sheet == sheet:
+                _table_votes(votes, table, labels, cells)
+        rows, cols = extents.get(sheet, (0, 0))
+        sheet_map = _sheet_map(found, votes, rows + 1, cols + 1, cells)
+        alignment.sheets[sheet] = sheet_map
+        alignment.changes += _describe(sheet_map, cells)
+    _find_moves(alignment, book, layout)
+    return alignment
+
+
+def _find_moves(alignment: Alignment, book: Workbook, layout: BookLayout) -> None:
+    """Named blocks cut and pasted elsewhere: the name points at a block of the same size away from
+    where the rows and columns put it, and that place is empty now. (A name that points elsewhere
+    while its block's cells are still in place is a changed name, which the audit reports.)"""
+    for name, block in layout.defined_names().items():
+        target = parse_range(book.names.get(name, ""))
+        placed = alignment.locate_block(block)
+        if target is None or placed is None or target == placed or target.sheet != placed.sheet or \
+                (target.nrows, target.ncols) != (block.nrows, block.ncols):
+            continue
+        values = book.sheets[placed.sheet].values
+        if any(values.get((placed.top + i, placed.left + j)) not in (None, "")
+               for i in range(placed.nrows) for j in range(placed.ncols)):
+            continue
+        alignment.moves.setdefault(block.sheet, []).append((block, target))
+        alignment.changes.append(Change(target.sheet, a1(target.top, target.left),
+                                        f"block {name} was moved from {a1(placed.top, placed.left)} to "
+                                        f"{a1(target.top, target.left)} of {target.sheet}"))
+
+
+def _extents(layout: BookLayout) -> dict[str, tuple[int, int]]:
+    from sheetnet.book.untrusted import layout_extents
+
+    return {sheet: (e.last_row, e.last_col) for sheet, e in layout_extents(layout).items()}
+
+
+def _tables(layout: BookLayout) -> list[tuple[Table, dict]]:
+    """Each table and its row labels: label (tuple of label cells' values) -> table row index."""
+    out = []
+    if layout.spec.n_cases:
+        out.append((layout.scoring, {(float(n + 1),): n for n in range(layout.spec.n_cases)}))
+    if layout.record is not None:
+        labels = {}
+        for s, (first, _count) in enumerate(layout.step_rows):
+            for p, case in enumerate(layout.spec.record.steps[s]):
+                labels[(float(s + 1), float(case + 1))] = first + p
+        out.append((layout.record, labels))
+        out.append((layout.epochs, {(float(e + 1),): e for e in range(layout.spec.record.n_epochs)}))
+    return out
+
+
+def _label_keys(table: Table) -> tuple[tuple, ...]:
+    return (("step",), ("case",)) if table.sheet == L.RECORD else ((table.columns[0].key),)
+
+
+def _anchor_texts(layout: BookLayout, entries) -> dict[str, list[tuple[tuple[int, int], object]]]:
+    """Per sheet: (position, constant) of the texts sheetnet wrote outside the tables' bodies."""
+    bodies = {table.sheet: (table.first_row, table.first_row + table.nrows - 1) for table, _ in _tables(layout)}
+    out: dict[str, list] = {}
+    for sheet, entry in entries:
+        if entry.role not in ANCHOR_ROLES or entry.content in (None, ""):
+            continue
+        body = bodies.get(sheet)
+        if body is not None and body[0] <= entry.row <= body[1]:
+            continue
+        out.setdefault(sheet, []).append(((entry.row, entry.col), entry.content))
+    return out
+
+
+def _map_sheets(alignment: Alignment, book: Workbook, layout: BookLayout, anchors: dict) -> dict[str, str]:
+    """Expected sheet -> the file's sheet (the same name, or the renamed sheet its names or texts
+    point to); renamed, missing and added sheets become changes."""
+    expected = [s for s in layout.sheet_names() if s != L.LAYOUT]
+    mapping = {name: name for name in expected if name in book.sheets}
+    spare = [name for name in book.sheets if name not in expected and name != L.LAYOUT]
+    for name in expected:
+        if name in mapping:
+            continue
+        match = _renamed(book, layout, name, spare, anchors.get(name, []))
+        if match is None:
+            alignment.missing.append(name)
+            alignment.changes.append(Change(name, "", f"sheet {name!r} is missing"))
+            continue
+        mapping[name] = match
+        spare.remove(match)
+        alignment.changes.append(Change(match, "A1", f"sheet {name!r} was renamed to {match!r}"))
+    alignment.added = spare
+    alignment.changes += [Change(name, "", f"sheet {name!r} was added") for name in spare]
+    return mapping
+
+
+def _renamed(book: Workbook, layout: BookLayout, name: str, spare: list[str], texts: list) -> str | None:
+    """The spare sheet that the defined names of ``name``'s blocks now point to, or whose texts best
+    match (at least 60% of them)."""
+    pointed = Counter()
+    for defined, block in layout.defined_names().items():
+        found = parse_range(book.names.get(defined, ""))
+        if block.sheet == name and found is not None and found.sheet in spare:
+            pointed[found.sheet] += 1
+    if pointed:
+        return pointed.most_common(1)[0][0]
+    wanted = {text for _, text in texts if isinstance(text, str)}
+    best, score = None, 0.0
+    for candidate in spare:
+        have = {v for v in book.sheets[candidate].values.values() if isinstance(v, str)}
+        overlap = len(wanted & have) / max(1, len(wanted))
+        if overlap > score:
+            best, score = candidate, overlap
+    return best if score >= 0.6 else None
+
+
+class _Votes:
+    def __init__(self) -> None:
+        self.rows: dict[int, Counter] = {}
+        self.cols: dict[int, Counter] = {}
+
+    def row(self, expected: int, found: int, weight: int = 1) -> None:
+        self.rows.setdefault(expected, Counter())[found] += weight
+
+    def col(self, expected: int, found: int, weight: int = 1) -> None:
+        self.cols.setdefault(expected, Counter())[found] += weight
+
+
+def _text_votes(votes: _Votes, anchors: list, cells: dict) -> None:
+    """Each anchor text paired, in reading order, with the same text in the file (when the text
+    occurs as often in the file as in the layout)."""
+    where: dict[object, list] = {}
+    for (row, col), text in anchors:
+        where.setdefault(_key(text), []).append((row, col))
+    found: dict[object, list] = {}
+    wanted = set(where)
+    for pos, value in cells.items():
+        key = _key(value)
+        if key in wanted:
+            found.setdefault(key, []).append(pos)
+    for key, expected in where.items():
+        have = sorted(found.get(key, []))
+        if len(have) != len(expected):
+            continue
+        for (r, c), (fr, fc) in zip(sorted(expected), have, strict=True):
+            votes.row(r, fr)
+            votes.col(c, fc)
+
+
+def _key(value: object) -> object:
+    if isinstance(value, bool) or value is None:
+        return None
+    return float(value) if isinstance(value, int | float) else value
+
+
+def _table_votes(votes: _Votes, table: Table, labels: dict, cells: dict) -> None:
+    """Table rows found by their labels, in the label columns the header anchors located."""
+    label_cols = []
+    for key in _label_keys(table):
+        counter = votes.cols.get(table.col(key))
+        if not counter:
+            return
+        label_cols.append(counter.most_common(1)[0][0])
+    header = votes.rows.get(table.header_row)
+    start = header.most_common(1)[0][0] + 1 if header else table.first_row
+    rows_present = sorted({r for r, _ in cells if r >= start})
+    for found_row in rows_present:
+        key = tuple(_key(cells.get((found_row, c))) for c in label_cols)
+        n = labels.get(key)
+        if n is not None:
+            votes.row(table.first_row + n, found_row, 2)
+
+
+def _one_to_one(votes: dict[int, Counter], size: int) -> np.ndarray:
+    """Each expected position -> its most voted position in the file; where two claim the same
+    one, the better supported keeps it (the other is left to the filling)."""
+    mapping = np.full(size, -1, dtype=np.int64)
+    holder: dict[int, tuple[int, int]] = {}
+    for expected in range(size):
+        counter = votes.get(expected)
+        if not counter:
+            continue
+        found, weight = counter.most_common(1)[0]
+        rival = holder.get(found)
+        if rival is not None and rival[1] >= weight:
+            continue
+        if rival is not None:
+            mapping[rival[0]] = -1
+        mapping[expected] = found
+        holder[found] = (expected, weight)
+    return mapping
+
+
+def _sheet_map(found: str, votes: _Votes, n_rows: int, n_cols: int, cells: dict) -> SheetMap:
+    rows = _fill(_one_to_one(votes.rows, n_rows))
+    cols = _fill(_one_to_one(votes.cols, n_cols))
+    reordered = _reordered(rows)
+    used_rows, used_cols = set(rows[rows >= 0].tolist()), set(cols[cols >= 0].tolist())
+    last_row, last_col = (max(rows.max(), 0), max(cols.max(), 0))
+    inserted_rows = {r for r, _ in cells if r <= last_row and r not in used_rows}
+    inserted_cols = {c for _, c in cells if c <= last_col and c not in used_cols}
+    return SheetMap(found, rows, cols, frozenset(reordered), frozenset(inserted_rows), frozenset(inserted_cols))
+
+
+def _fill(mapping: np.ndarray) -> np.ndarray:
+    """Positions without an anchor take the shift of the nearest anchored one above (or below), unless
+    that lands on a position another one holds (then they are gone)."""
+    anchored = np.flatnonzero(mapping >= 0)
+    if not anchored.size:
+        return np.arange(len(mapping))
+    out = mapping.copy()
+    taken = set(mapping[anchored].tolist())
+    for i in np.flatnonzero(mapping < 0):
+        above = anchored[anchored < i]
+        near = above[-1] if above.size else anchored[anchored > i][0]
+        candidate = int(mapping[near] + (i - near))
+        if candidate >= 0 and candidate not in taken and _between(mapping, anchored, i, candidate):
+            out[i] = candidate
+            taken.add(candidate)
+    return out
+
+
+def _between(mapping: np.ndarray, anchored: np.ndarray, i: int, candidate: int) -> bool:
+    """The candidate keeps the order with the next anchored position below (a deleted row must not
+    take the place of the row that moved up into it)."""
+    below = anchored[anchored > i]
+    return not below.size or candidate < mapping[below[0]]
+
+
+def _reordered(rows: np.ndarray) -> set[int]:
+    """Expected rows that moved as part of a permutation (a sort): those out of increasing order."""
+    alive = np.flatnonzero(rows >= 0)
+    if alive.size < 2:
+        return set()
+    found = rows[alive]
+    if np.all(np.diff(found) > 0):
+        return set()
+    # the smallest window of expected rows outside which the order is increasing
+    increasing_prefix = np.maximum.accumulate(found)
+    decreasing_suffix = np.minimum.accumulate(found[::-1])[::-1]
+    out_of_place = np.flatnonzero((found != increasing_prefix) | (found != decreasing_suffix))
+    if not out_of_place.size:
+        return set()
+    first, last = out_of_place.min(), out_of_place.max()
+    return set(alive[first:last + 1].tolist())
+
+
+# ---------------------------------------------------------------- describing what moved
+
+
+def _describe(m: SheetMap, cells: dict) -> list[Change]:
+    changes = []
+    changes += _moves(m.found, m.rows, "row", lambda i: a1(i, 0), lambda i: str(i + 1), m.reordered)
+    changes += _moves(m.found, m.cols, "column", lambda i: a1(0, i), column_letters, frozenset())
+    if m.reordered:
+        first, last = min(m.reordered), max(m.reordered)
+        changes.append(Change(m.found, a1(int(m.rows[first]), 0),
+                              f"{len(m.reordered)} rows of {m.found} were reordered (sorted): the rows sheetnet "
+                              f"wrote as {first + 1}-{last + 1} are now in another order; references from other "
+                              "rows still point at the old positions"))
+    return changes
+
+
+def _moves(sheet: str, mapping: np.ndarray, what: str, cell, name, reordered: frozenset) -> list[Change]:
+    """Insertions (a jump in the map) and deletions (a run of -1) along rows or columns."""
+    changes = []
+    previous_expected, previous_found = -1, -1
+    i = 0
+    while i < len(mapping):
+        if mapping[i] < 0:
+            j = i
+            while j + 1 < len(mapping) and mapping[j + 1] < 0:
+                j += 1
+            at = previous_found + 1
+            count = j - i + 1
+            changes.append(Change(sheet, cell(at), f"{count} {what}(s) deleted at {what} {name(at)} of {sheet} "
+                                                   f"(sheetnet wrote them as {name(i)}-{name(j)})"))
+            i = j + 1
+            continue
+        if i not in reordered and previous_expected >= 0 and previous_expected not in reordered:
+            gap = int(mapping[i]) - previous_found - (i - previous_expected)
+            if gap > 0:
+                at = previous_found + (i - previous_expected)
+                changes.append(Change(sheet, cell(at), f"{gap} {what}(s) inserted at {what} {name(at)} of {sheet}"))
+        previous_expected, previous_found = i, int(mapping[i])
+        i += 1
+    return changes
