@@ -43,6 +43,9 @@ def comparison_lines(c: Comparison) -> list[str]:
 
 def verify_lines(report: VerifyReport) -> list[str]:
     lines = [f"verifying {report.path}"]
+    if report.realigned:
+        lines.append(f"re-aligned to {len(report.realigned)} structural change(s) (cells compared where they moved):")
+        lines += [f"  {change}" for change in report.realigned[:SHOWN]]
     for comparison in report.comparisons:
         lines += comparison_lines(comparison)
     if report.description_problems:

@@ -19,6 +19,7 @@ from sheetnet.book.addresses import Cell, range_ref, ref
 from sheetnet.book.layout import (
     CALCULATOR,
     EPOCHS,
+    PARAMETERS,
     RECORD,
     SCORING,
     SETUP,
@@ -734,3 +735,17 @@ def _loss_note(spec: BookSpec) -> str:
         return "Cross-entropy: -sum over classes of target * LN(MAX(output, 1E-12))."
     return "Cross-entropy: -sum over outputs of t*LN(MAX(y,1E-12)) + (1-t)*LN(MAX(1-y,1E-12))."
 
+
+
+#: The cells of each sheet that has any (the Guide is prose; the layout sheet is the description).
+SHEET_ENTRIES = {PARAMETERS: parameter_entries, CALCULATOR: calculator_entries, SCORING: scoring_entries,
+                 SETUP: setup_entries, RECORD: record_entries, EPOCHS: epoch_entries}
+
+
+def all_entries(layout: BookLayout, numbers: Numbers) -> Iterator[tuple[str, Entry]]:
+    """(sheet name, entry) for every cell sheetnet writes, sheet by sheet in the workbook's order."""
+    for sheet in layout.sheet_names():
+        entries = SHEET_ENTRIES.get(sheet)
+        if entries is not None:
+            for entry in entries(layout, numbers):
+                yield sheet, entry

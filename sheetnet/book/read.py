@@ -46,6 +46,8 @@ class InvalidInput:
     deleted: bool = False  # the cell is gone (``cell`` is then where the layout put it)
 
     def __str__(self) -> str:
+        if self.deleted:
+            return f"{cell_name(self.cell)} ({self.what}) was deleted"
         return f"{cell_name(self.cell)} ({self.what}) {_shown(self.found)}: {self.reason}"
 
 
@@ -168,7 +170,8 @@ def read_inputs(book: Workbook, layout: BookLayout, locate: Locate | None = None
     invalid = [item for item in invalid if groups is None or item.group in groups]
     if invalid:
         more = f" (and {len(invalid) - 1} more invalid input cells)" if len(invalid) > 1 else ""
-        raise InvalidInputsError(f"{book.path}: input cell {invalid[0]}{more}", invalid)
+        raise InvalidInputsError(f"{book.path}: input cell {invalid[0]}{more}; 'sheetnet audit' lists every one",
+                                 invalid)
     return inputs
 
 

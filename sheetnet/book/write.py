@@ -246,18 +246,14 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with, 
     tally = Tally(progress)
     spec = layout.spec
     wide = min(40, max(14, 2 + max(len(n) for n in (*spec.inputs, *spec.outputs, *spec.target))))
-    sheets = [(L.PARAMETERS, plan.parameter_entries, (22, wide), None, False),
-              (L.CALCULATOR, plan.calculator_entries, (22, wide), None, False)]
-    if spec.n_cases:
-        sheets.append((L.SCORING, plan.scoring_entries, (22, wide), (layout.scoring.first_row, 2), True))
-    if layout.record is not None:
-        sheets += [(L.SETUP, plan.setup_entries, (26, wide), None, False),
-                   (L.RECORD, plan.record_entries, (7, 16), (layout.record.first_row, 3), True),
-                   (L.EPOCHS, plan.epoch_entries, (10, 14), (layout.epochs.first_row, 1), False)]
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         _guide(book, formats, layout, names, digests)
-        for name, entries, widths, freeze, ordered in sheets:
+        for name in layout.sheet_names():
+            entries = plan.SHEET_ENTRIES.get(name)
+            if entries is None:
+                continue
+            widths, freeze, ordered = _display(layout, name, wide)
             sheet = _sheet(book, name, widths, None if freeze is None else freeze[0] - 1, _width(layout, name))
             if freeze:
                 sheet.freeze_panes(*freeze)
@@ -273,6 +269,17 @@ def write_book(path: Path, layout: BookLayout, numbers: Numbers, describe_with, 
     if progress is not None:
         progress(progress.total)
     return tally.formulas
+
+
+def _display(layout: BookLayout, sheet: str, wide: int) -> tuple[tuple[int, int], tuple[int, int] | None, bool]:
+    """Column widths (first, others), the frozen corner (tables) and whether rows stream in order."""
+    if sheet == L.SCORING:
+        return (22, wide), (layout.scoring.first_row, 2), True
+    if sheet == L.RECORD:
+        return (7, 16), (layout.record.first_row, 3), True
+    if sheet == L.EPOCHS:
+        return (10, 14), (layout.epochs.first_row, 1), False
+    return (26 if sheet == L.SETUP else 22, wide), None, False
 
 
 def _width(layout: BookLayout, sheet: str) -> int:

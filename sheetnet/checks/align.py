@@ -30,9 +30,24 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from sheetnet.book import layout as L
-from sheetnet.book.addresses import Block, Cell, a1, column_index, column_letters, parse_range, quote_sheet
+from sheetnet.book import plan
+from sheetnet.book.addresses import (
+    Block,
+    Cell,
+    a1,
+    column_index,
+    column_letters,
+    defined_name_target,
+    parse_range,
+    quote_sheet,
+)
+from sheetnet.book.canonical import target_text
 from sheetnet.book.layout import BookLayout, Table
+from sheetnet.book.numbers import compute
+from sheetnet.book.read import read_inputs_checked
+from sheetnet.book.spec import BookInputs
 from sheetnet.book.xlsxread import Workbook
+from sheetnet.errors import SheetNetError, WorkbookFormatError
 
 #: Text roles of the plan that serve as anchors (outside the tables' bodies).
 ANCHOR_ROLES = ("title", "header", "label", "text")
@@ -220,6 +235,47 @@ def _span(mapping: np.ndarray, first: int, last: int, point) -> tuple[int, int] 
 
 
 # ---------------------------------------------------------------- finding the maps
+
+
+def alignment_for(book: Workbook, layout: BookLayout, original: BookInputs | None) -> Alignment | None:
+    """None when the workbook is laid out exactly as built (checked cheaply: the common case), else
+    its alignment, anchored on the texts the plan writes (from the original inputs when trusted)."""
+    if looks_unmoved(book, layout):
+        return None
+    inputs = original if original is not None else read_inputs_checked(book, layout)[0]
+    try:
+        numbers = compute(layout.spec, inputs)
+    except SheetNetError as exc:
+        raise WorkbookFormatError(f"the workbook was restructured and cannot be re-aligned ({exc})") from None
+    return align(book, layout, plan.all_entries(layout, numbers))
+
+
+def looks_unmoved(book: Workbook, layout: BookLayout) -> bool:
+    """Every sheet under its name, every defined name on its block, every sheet's extent as built,
+    every table header in place and every table row label where it was written."""
+    from sheetnet.book.untrusted import layout_extents
+
+    if any(sheet not in book.sheets for sheet in layout.sheet_names()):
+        return False
+    if any(target_text(book.names.get(name, "")) != target_text(defined_name_target(block))
+           for name, block in layout.defined_names().items()):
+        return False
+    for sheet, extent in layout_extents(layout).items():
+        cells = book.sheets[sheet].values
+        if max((r for r, _ in cells), default=-1) != extent.last_row or \
+                max((c for _, c in cells), default=-1) != extent.last_col:
+            return False
+    for table, labels in _tables(layout):
+        cells = book.sheets[table.sheet].values
+        if any(cells.get((table.header_row, table.col(c.key))) != c.header for c in table.columns):
+            return False
+        columns = [table.col(key) for key in _label_keys(table)]
+        for label, n in labels.items():
+            row = table.first_row + n
+            if tuple(_key(cells.get((row, c))) for c in columns) != label:
+                return False
+    return True
+
 
 
 def align(book: Workbook, layout: BookLayout, entries: Iterable[tuple[str, object]]) -> Alignment:

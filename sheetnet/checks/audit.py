@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from sheetnet.book import layout as L
+from sheetnet.book import plan
 from sheetnet.book.addresses import parse_a1
 from sheetnet.book.jsoncheck import Problem, json_differences
 from sheetnet.book.layout import BookLayout
@@ -24,7 +25,7 @@ from sheetnet.book.xlsxread import Workbook, read_workbook
 from sheetnet.checks.align import Alignment, align
 from sheetnet.checks.audit_cells import check_formulas, check_inputs, check_risks, check_structure
 from sheetnet.checks.findings import KINDS, AuditReport, Finding
-from sheetnet.checks.verify import compare, engine_values, expected_entries, expected_formulas
+from sheetnet.checks.verify import compare, engine_values, expected_formulas
 from sheetnet.errors import SheetNetError, WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
@@ -117,7 +118,7 @@ def _audit(path: Path, against: Path | None, key: bytes | None) -> AuditReport:
         report.notes.append(SELF_ASSERTED)
     layout = reference.layout
     original = reference.original if reference.original is not None else read_inputs_checked(book, layout)[0]
-    entries = list(expected_entries(layout, compute(layout.spec, original)))
+    entries = list(plan.all_entries(layout, compute(layout.spec, original)))
     engine = Background(engine_values, book, "embedded")
     try:
         alignment = align(book, layout, entries)

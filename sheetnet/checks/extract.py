@@ -1,4 +1,10 @@
-"""Extract: the (possibly edited) parameters of a workbook back as a model file."""
+"""Extract: the (possibly edited) parameters of a workbook back as a model file.
+
+Blocks are found where the application moved them (``align``: defined names, labels, renamed
+sheets). Untouched means exact: a parameter that the file holds within the audit's round-trip
+tolerance of what ``build`` wrote comes back as ``build`` wrote it (an application that saves 15
+significant digits must not change a model); an edited one comes back as the file holds it.
+"""
 
 from __future__ import annotations
 
@@ -7,64 +13,19 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet.book.describe import Fingerprints
+from sheetnet.book import plan
+from sheetnet.book.addresses import Block, Cell, cell_name
+from sheetnet.book.canonical import normalize_formula
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.read import input_cells, read_inputs, read_inputs_checked, read_layout
-from sheetnet.book.untrusted import Description
+from sheetnet.book.numbers import compute
+from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.spec import BookInputs
 from sheetnet.book.xlsxread import Workbook, read_workbook
+from sheetnet.checks.align import Alignment, alignment_for
+from sheetnet.checks.audit_cells import SAME_NUMBER
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model
-
-
-def formula_fingerprints(book: Workbook) -> dict[str, str]:
-    """The formula fingerprints of the file as it is now, computed as ``build`` computes them."""
-    from sheetnet.book.plan import Entry
-
-    prints = Fingerprints()
-    for name, cells in book.sheets.items():
-        prints.add_all(name, [Entry(r, c, "formula", "=" + cells.formulas[r, c]) for r, c in sorted(cells.formulas)])
-    return prints.to_dict()["formulas"]
-
-
-def unchanged_since_build(book: Workbook, layout: BookLayout, description: Description) -> bool:
-    """No formula and no input differs from what build wrote (so build's cached values are current)."""
-    if description.original is None or description.problems_in("fingerprints") or \
-            formula_fingerprints(book) != description.data["fingerprints"]["formulas"]:
-        return False
-    original = input_cells(layout, description.original)
-    now = input_cells(layout, read_inputs_checked(book, layout)[0])
-    return all(a[2] == b[2] for a, b in zip(original, now, strict=True))
-
-
-def _final_layers(book: Workbook, layout: BookLayout, description: Description) -> tuple[tuple[Layer, ...], str]:
-    blocks = layout.final
-    if blocks is None:
-        raise WorkbookFormatError(f"{book.path}: the workbook has no training record to take parameters from")
-    cells = [(b.sheet, b.top + i, b.left + j) for b in (*blocks.weights, *blocks.bias)
-             for i in range(b.nrows) for j in range(b.ncols)]
-    cached = {key: book.sheets[key[0]].values.get(key[1:]) for key in cells}
-    if all(isinstance(v, float) for v in cached.values()) and unchanged_since_build(book, layout, description):
-        values, note = cached, "parameters after training read from the cached values (current)"
-    else:
-        from sheetnet.engines.embedded import recalculate
-
-        result = recalculate(book)
-        found = result.values(book)
-        values = {key: found.get(key[0], {}).get(key[1:]) for key in cells}
-        note = "parameters after training recalculated with the embedded engine (cached values missing or stale)"
-    bad = [k for k, v in values.items() if not isinstance(v, float) or not np.isfinite(v)]
-    if bad:
-        sheet, row, col = bad[0]
-        from sheetnet.book.addresses import a1
-
-        raise WorkbookFormatError(f"{book.path}: {sheet}!{a1(row, col)} does not hold a number after recalculation")
-    layers = tuple(Layer(weights=np.array([[values[(w.sheet, w.top + i, w.left + j)] for j in range(w.ncols)]
-                                           for i in range(w.nrows)]),
-                         bias=np.array([values[(b.sheet, b.top + i, b.left)] for i in range(b.nrows)]),
-                         activation=act)
-                   for w, b, act in zip(blocks.weights, blocks.bias, layout.spec.activations, strict=True))
-    return layers, note
 
 
 def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]:
@@ -72,14 +33,111 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
     with paused_gc():
         book = read_workbook(path)
         layout, description = read_layout(book)
+        alignment = alignment_for(book, layout, description.original)
         needed = ("parameters", "scaling", "training", "data") if after_training else ("parameters", "scaling")
-        inputs = read_inputs(book, layout, groups=needed)
-        spec = layout.spec
+        now = read_inputs(book, layout, locate=None if alignment is None else alignment.locate, groups=needed)
+        inputs = as_built(now, description.original)
         note = "parameters read from the Parameters sheet"
         layers = inputs.layers
         if after_training:
-            layers, note = _final_layers(book, layout, description)
-        model = inputs.model(spec, layers=layers)
+            layers, note = _final_layers(book, layout, inputs, description.original, alignment)
+        model = inputs.model(layout.spec, layers=layers)
         training = {"extracted_from": Path(path).name, "after_training": after_training,
-                    "provenance": dict(spec.provenance)}
+                    "provenance": dict(layout.spec.provenance)}
         return replace(model, training=training), note
+
+
+def _untouched(now: np.ndarray, built: np.ndarray) -> np.ndarray:
+    """Build's values where the file holds them within the round-trip tolerance, else the file's."""
+    if now.shape != built.shape:
+        return now
+    same = np.abs(now - built) <= SAME_NUMBER * np.maximum(np.abs(now), np.abs(built))
+    return np.where(same, built, now)
+
+
+def _layers_as_built(now: tuple[Layer, ...], built: tuple[Layer, ...]) -> tuple[Layer, ...]:
+    if len(now) != len(built):
+        return now
+    return tuple(replace(a, weights=_untouched(a.weights, b.weights), bias=_untouched(a.bias, b.bias))
+                 for a, b in zip(now, built, strict=True))
+
+
+def as_built(now: BookInputs, built: BookInputs | None) -> BookInputs:
+    """The file's parameters, scaling and training inputs, with every untouched number exactly as built."""
+    if built is None:
+        return now
+    rates = [float(_untouched(np.array([a]), np.array([b]))[0]) for a, b in (
+        (now.learning_rate, built.learning_rate), (now.momentum, built.momentum), (now.l2, built.l2))]
+    return replace(now, layers=_layers_as_built(now.layers, built.layers), offset=_untouched(now.offset, built.offset),
+                   divisor=_untouched(now.divisor, built.divisor), initial=_layers_as_built(now.initial, built.initial),
+                   learning_rate=rates[0], momentum=rates[1], l2=rates[2])
+
+
+def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built: BookInputs | None,
+                  alignment: Alignment | None) -> tuple[tuple[Layer, ...], str]:
+    """The parameters after the record's last step: the reference trainer's exactly, when every input
+    the record uses and every formula are as built; else recalculated from the file."""
+    if layout.final is None:
+        raise WorkbookFormatError(f"{book.path}: the workbook has no training record to take parameters from")
+    if built is not None and _record_inputs_as_built(inputs, built):
+        numbers = compute(layout.spec, built)
+        if _formulas_as_built(book, layout, numbers, alignment):
+            note = "parameters after training: the reference trainer's (the inputs and formulas are as built)"
+            return numbers.record.trace[-1].after, note
+    from sheetnet.engines.embedded import recalculate
+
+    found = recalculate(book).values(book)
+    locate = (lambda cell: cell) if alignment is None else alignment.locate
+
+    def read(block: Block) -> np.ndarray:
+        out = np.empty((block.nrows, block.ncols))
+        for i in range(block.nrows):
+            for j in range(block.ncols):
+                where = locate(block.cell(i, j))
+                value = None if where is None else found.get(where.sheet, {}).get((where.row, where.col))
+                if not isinstance(value, float) or not np.isfinite(value):
+                    raise WorkbookFormatError(f"{book.path}: {cell_name(where or block.cell(i, j))} does not hold a "
+                                              "number after recalculation")
+                out[i, j] = value
+        return out
+
+    final = layout.final
+    layers = tuple(Layer(read(w), read(b)[:, 0], act)
+                   for w, b, act in zip(final.weights, final.bias, layout.spec.activations, strict=True))
+    return layers, "parameters after training recalculated with the embedded engine (the workbook was edited)"
+
+
+def _record_inputs_as_built(inputs: BookInputs, built: BookInputs) -> bool:
+    def same(a, b) -> bool:
+        return np.array_equal(np.asarray(a, dtype=float), np.asarray(b, dtype=float))
+
+    layers = all(same(a.weights, b.weights) and same(a.bias, b.bias)
+                 for a, b in zip(inputs.initial, built.initial, strict=True))
+    return layers and same(inputs.offset, built.offset) and same(inputs.divisor, built.divisor) and \
+        (inputs.learning_rate, inputs.momentum, inputs.l2) == (built.learning_rate, built.momentum, built.l2) and \
+        _data_as_built(inputs.data, built.data)
+
+
+def _data_as_built(now, built) -> bool:
+    if len(now) != len(built):
+        return False
+    for a, b in zip(now, built, strict=True):
+        for x, y in zip(a, b, strict=True):
+            if x != y and not (isinstance(x, float) and isinstance(y, float)
+                               and abs(x - y) <= SAME_NUMBER * max(abs(x), abs(y))):
+                return False
+    return True
+
+
+def _formulas_as_built(book: Workbook, layout: BookLayout, numbers, alignment: Alignment | None) -> bool:
+    """Every formula cell holds the formula build wrote (where the alignment puts it)."""
+    for sheet, entry in plan.all_entries(layout, numbers):
+        if entry.role != "formula":
+            continue
+        here = Cell(sheet, entry.row, entry.col)
+        where = here if alignment is None else alignment.locate(here)
+        expected = entry.content if alignment is None else alignment.translate(entry.content, here)
+        found = None if where is None else book.sheets[where.sheet].formulas.get((where.row, where.col))
+        if found is None or (found != expected[1:] and normalize_formula(found) != normalize_formula(expected)):
+            return False
+    return True

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import itertools
 import tempfile
-from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -24,7 +23,7 @@ from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
 from sheetnet.book.untrusted import read_description
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
-from sheetnet.checks.align import Alignment
+from sheetnet.checks.align import Alignment, alignment_for
 from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
@@ -32,20 +31,6 @@ from sheetnet.parallel import Background
 
 ENGINES = ("embedded", "libreoffice", "both")
 DEFAULT_TOLERANCE = 1e-9
-
-def expected_entries(layout: BookLayout, numbers) -> Iterator[tuple[str, plan.Entry]]:
-    """(sheet name, entry) for every cell sheetnet writes, from the layout and the reference numbers."""
-    from sheetnet.book import layout as L
-
-    sheets = [(L.PARAMETERS, plan.parameter_entries), (L.CALCULATOR, plan.calculator_entries)]
-    if layout.spec.n_cases:
-        sheets.append((L.SCORING, plan.scoring_entries))
-    if layout.record is not None and numbers.record is not None:
-        sheets += [(L.SETUP, plan.setup_entries), (L.RECORD, plan.record_entries), (L.EPOCHS, plan.epoch_entries)]
-    for name, entries in sheets:
-        for entry in entries(layout, numbers):
-            yield name, entry
-
 
 def agree(found, expected, tolerance: float) -> bool:
     if isinstance(expected, float | int) and not isinstance(expected, bool):
@@ -121,9 +106,9 @@ def expected_formulas(book: Workbook, layout: BookLayout, alignment: Alignment |
     as_float = float
     if not moved:
         return [(sheet, e.row, e.col, e.content, as_float(e.value) if isinstance(e.value, float) else e.value)
-                for sheet, e in expected_entries(layout, numbers) if e.role == "formula"]
+                for sheet, e in plan.all_entries(layout, numbers) if e.role == "formula"]
     items = []
-    for sheet, e in expected_entries(layout, numbers):
+    for sheet, e in plan.all_entries(layout, numbers):
         if e.role != "formula":
             continue
         here = Cell(sheet, e.row, e.col)
@@ -299,6 +284,7 @@ class VerifyReport:
     comparisons: list[Comparison]
     description_problems: list[str] = field(default_factory=list)  # in parts verify does not need
     signature: SignatureCheck | None = None  # with a key only
+    realigned: list[str] = field(default_factory=list)  # structural changes followed (rows inserted...)
 
     @property
     def verdict(self) -> str:
@@ -314,6 +300,7 @@ class VerifyReport:
     def to_dict(self) -> dict:
         first = self.comparisons[0].to_dict()
         common = {"file": str(self.path), "verdict": self.verdict, "description_problems": self.description_problems,
+                  "realigned": self.realigned,
                   "signature": None if self.signature is None else self.signature.to_dict()}
         if len(self.comparisons) == 1:
             return {**first, **common, "ok": self.ok}
@@ -363,7 +350,8 @@ def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | No
     # only the file, and a 2-core machine does the two at once.
     running = [(name, Background(engine_values, book, name)) for name in names]
     try:
-        expected = expected_formulas(book, layout)
+        alignment = _followable(alignment_for(book, layout, description.original))
+        expected = expected_formulas(book, layout, alignment)
         prepared = prepare(book, expected, tolerance)  # while the engines still run
         progress(2)
         comparisons = []
@@ -380,4 +368,16 @@ def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | No
     progress(VERIFY_STAGES)
     signed = None if key is None else check_signature(book, description.data, key)
     return VerifyReport(path=Path(path), comparisons=comparisons,
-                        description_problems=[str(p) for p in description.problems], signature=signed)
+                        description_problems=[str(p) for p in description.problems], signature=signed,
+                        realigned=[] if alignment is None else [f"{c.sheet}!{c.cell}: {c.note}" if c.cell else c.note
+                                                                for c in alignment.changes])
+
+
+def _followable(alignment: Alignment | None) -> Alignment | None:
+    """The alignment, when verify can compare through it; else why not, and where to look."""
+    if alignment is not None and (alignment.missing or alignment.reordered):
+        what = f"sheet(s) {', '.join(alignment.missing)} missing" if alignment.missing else \
+            f"rows of {', '.join(alignment.reordered)} were reordered (sorted), which changes what the training " \
+            "record reads"
+        raise WorkbookFormatError(f"{what}; run 'sheetnet audit' to see every change and what it did")
+    return alignment
