@@ -184,6 +184,18 @@ def test_annotated_copy_marks_findings(book, tmp_path, run_cli):
     assert any(weight[1] in link for link in links)
 
 
+
+def test_annotated_copy_keeps_saved_values(book, tmp_path, run_cli):
+    """A viewer that does not recalculate still shows the numbers the file saved."""
+    out = tmp_path / "annotated.xlsx"
+    assert _audit(run_cli, book, "--annotate", out)[0] == 0
+    saved, copied = openpyxl.load_workbook(book, data_only=True), openpyxl.load_workbook(out, data_only=True)
+    formulas = [(ws.title, c.coordinate) for ws in openpyxl.load_workbook(book).worksheets for row in ws.iter_rows()
+                for c in row if c.data_type == "f"]
+    assert len(formulas) > 100
+    assert all(copied[s][c].value == saved[s][c].value for s, c in formulas)
+
+
 def test_extract_gives_the_edited_weights(book, tmp_path, run_cli):
     weight = _cell_of(book, "W_1", 2, 1)
     edited = _edit(book, tmp_path / "e.xlsx", lambda wb: wb[weight[0]].__setitem__(weight[1], -1.5))

@@ -3,9 +3,13 @@ and listed on a findings sheet that links to each cell. The input is never modif
 
 from __future__ import annotations
 
+import re
+import zipfile
 from pathlib import Path
+from xml.sax.saxutils import escape
 
-from sheetnet.book.addresses import quote_sheet
+from sheetnet.book.addresses import parse_a1, quote_sheet
+from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
 from sheetnet.checks.findings import AuditReport
 from sheetnet.files import write_atomic
 
@@ -46,7 +50,51 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
         if finding.found is not None:
             text += f"\nfound: {_text(finding.found)}"
         target.comment = Comment(text[:2000], "sheetnet audit", width=320, height=140)
-    return write_atomic(Path(out), lambda tmp: book.save(tmp), force=force)
+    cached = read_workbook(source, allow_macros=True)
+
+    def save(tmp: Path) -> None:
+        book.save(tmp)
+        keep_saved_values(tmp, [ws.title for ws in book.worksheets], cached)
+
+    return write_atomic(Path(out), save, force=force)
+
+
+_FORMULA_CELL = re.compile(r'<c r="([A-Z]+[0-9]+)"([^>]*)><f>([^<]*)</f><v */></c>')
+
+
+def keep_saved_values(path: Path, titles: list[str], source: Workbook) -> None:
+    """openpyxl writes formulas without their saved values; put the source's values back, so that
+    viewers that do not recalculate still show numbers (openpyxl names sheet parts by position)."""
+    with zipfile.ZipFile(path) as zf:
+        infos = zf.infolist()
+        parts = {item.filename: zf.read(item.filename) for item in infos}
+    for n, title in enumerate(titles, start=1):
+        part = f"xl/worksheets/sheet{n}.xml"
+        cells = source.sheets.get(title)
+        if cells is None or part not in parts:
+            continue
+        text = parts[part].decode("utf-8")
+        parts[part] = _FORMULA_CELL.sub(lambda m, v=cells.values: _with_value(m, v), text).encode("utf-8")
+    with zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED) as zf:
+        for item in infos:
+            zf.writestr(item, parts[item.filename])
+
+
+def _with_value(match: re.Match, values: dict) -> str:
+    ref, attrs, formula = match.groups()
+    value = values.get(parse_a1(ref))
+    if isinstance(value, bool):
+        kind, text = "b", "1" if value else "0"
+    elif isinstance(value, float | int):
+        kind, text = "", repr(float(value))
+    elif isinstance(value, CellError):
+        kind, text = "e", value.code
+    elif isinstance(value, str):
+        kind, text = "str", escape(value)
+    else:
+        return match.group(0)
+    attrs = re.sub(r'\s+t="[^"]*"', "", attrs) + (f' t="{kind}"' if kind else "")
+    return f'<c r="{ref}"{attrs}><f>{formula}</f><v>{text}</v></c>'
 
 
 def _target(book, finding):
