@@ -188,6 +188,8 @@ def _parser() -> argparse.ArgumentParser:
     audit_p.add_argument("book", type=Path)
     audit_p.add_argument("--against", type=Path, help="the original workbook to compare with")
     audit_p.add_argument("--key", type=Path, metavar="KEYFILE", help="also check the signature made with this key")
+    audit_p.add_argument("--engine", choices=("embedded", "libreoffice", "formulas"), default="embedded",
+                         help="engine that recalculates the values compared with the reference (default: embedded)")
     audit_p.add_argument("--json", type=Path, help="write the findings as JSON here")
     audit_p.add_argument("--annotate", type=Path, help="write a copy with every finding highlighted")
     audit_p.add_argument("--force", action="store_true", help="overwrite existing report files")
@@ -436,7 +438,7 @@ def cmd_audit(args: argparse.Namespace) -> int:
             check_output(path, args.force, inputs=sources)
     bar = Progress(1, "auditing", quiet=args.quiet)
     bar(0)
-    report = audit(args.book, against=args.against, key=_key(args.key))
+    report = audit(args.book, against=args.against, key=_key(args.key), engine=args.engine)
     bar(1)
     print("\n".join(audit_lines(report)))
     if args.json:

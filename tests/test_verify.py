@@ -207,3 +207,29 @@ def test_input_changed_without_recalculation_is_stale_not_a_mismatch(tmp_path, r
     code, out, _ = run_cli("audit", stale, "--json", tmp_path / "a.json")
     report = json.loads((tmp_path / "a.json").read_text())
     assert report["counts"]["input_edits"] == 1 and report["counts"]["risks"] == data["stale_count"]
+
+
+@pytest.mark.slow
+@pytest.mark.libreoffice
+def test_three_engines_agree_on_the_demo_workbook(tmp_path, run_cli):
+    """The embedded engine, LibreOffice and the `formulas` package each recalculate the demo workbook
+    and agree with the reference trainer cell by cell."""
+    from sheetnet.demo import DEMO_FLAGS, demo_csv_text
+
+    data = tmp_path / "demo.csv"
+    data.write_text(demo_csv_text())
+    assert run_cli("build", data, *DEMO_FLAGS, "--quiet", "-o", tmp_path / "demo.xlsx")[0] == 0
+    code, out, report = _verify(run_cli, tmp_path / "demo.xlsx", "--engine", "all")
+    assert code == 0, out
+    assert set(report["engines"]) == {"embedded", "libreoffice", "formulas"}
+    assert all(r["cells_compared"] == report["cells_compared"] > 20_000 for r in report["engines"].values())
+
+
+def test_formulas_engine_refuses_large_workbooks_with_an_estimate(book, run_cli, monkeypatch):
+    from sheetnet.engines import formulaspkg
+
+    monkeypatch.setattr(formulaspkg, "MAX_CELLS", 100)
+    code, _out, err = run_cli("verify", book, "--engine", "formulas")
+    assert code == 2 and "at most 100 formula cells" in err and "minutes" in err
+    code, _out, err = run_cli("audit", book, "--engine", "formulas")
+    assert code == 2 and "at most 100 formula cells" in err

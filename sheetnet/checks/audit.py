@@ -25,7 +25,7 @@ from sheetnet.book.xlsxread import Workbook, read_workbook
 from sheetnet.checks.align import Alignment, align
 from sheetnet.checks.audit_cells import check_formulas, check_inputs, check_risks, check_structure
 from sheetnet.checks.findings import KINDS, AuditReport, Finding
-from sheetnet.checks.verify import compare, engine_values, expected_formulas
+from sheetnet.checks.verify import by_cell, compare, engine_values, expected_formulas
 from sheetnet.errors import SheetNetError, WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
@@ -96,14 +96,15 @@ def _description_findings(report: AuditReport, problems: list[Problem]) -> None:
         report.add(Finding("", problem.where, "description", None, None, problem.what))
 
 
-def audit(path: str | Path, against: str | Path | None = None, key: bytes | None = None) -> AuditReport:
+def audit(path: str | Path, against: str | Path | None = None, key: bytes | None = None,
+          engine: str = "embedded") -> AuditReport:
     """Every difference between an edited workbook and its reference, classified; with ``key``, whether
-    the workbook's signature holds."""
+    the workbook's signature holds. ``engine`` recalculates the values compared with the reference."""
     with paused_gc():
-        return _audit(Path(path), None if against is None else Path(against), key)
+        return _audit(Path(path), None if against is None else Path(against), key, engine)
 
 
-def _audit(path: Path, against: Path | None, key: bytes | None) -> AuditReport:
+def _audit(path: Path, against: Path | None, key: bytes | None, engine_name: str) -> AuditReport:
     book = read_workbook(path, allow_macros=True)
     report = AuditReport(path=path, reference=str(against) if against else "layout description stored in the file")
     own = _own_description(book, against)
@@ -119,7 +120,11 @@ def _audit(path: Path, against: Path | None, key: bytes | None) -> AuditReport:
     layout = reference.layout
     original = reference.original if reference.original is not None else read_inputs_checked(book, layout)[0]
     entries = list(plan.all_entries(layout, compute(layout.spec, original)))
-    engine = Background(engine_values, book, "embedded")
+    if engine_name == "formulas":
+        from sheetnet.engines.formulaspkg import check_size
+
+        check_size(book)
+    engine = Background(engine_values, book, engine_name)
     try:
         alignment = align(book, layout, entries)
         check_structure(report, book, layout, alignment)
@@ -131,14 +136,14 @@ def _audit(path: Path, against: Path | None, key: bytes | None) -> AuditReport:
             report.notes.append("input edits were not listed: the original inputs stored in the description "
                                 "cannot be trusted")
         check_formulas(report, book, entries, alignment, reference.formulas)
-        _check_values(report, book, layout, alignment, engine)
+        _check_values(report, book, layout, alignment, engine, engine_name)
     finally:
         engine.stop()
     return report
 
 
 def _check_values(report: AuditReport, book: Workbook, layout: BookLayout, alignment: Alignment,
-                  engine: Background) -> None:
+                  engine: Background, engine_name: str) -> None:
     """Recalculated values against the reference trainer run on the inputs the file holds now."""
     if alignment.missing:
         report.notes.append(f"recalculated values were not compared with the reference: sheet(s) missing: "
@@ -149,9 +154,8 @@ def _check_values(report: AuditReport, book: Workbook, layout: BookLayout, align
     except SheetNetError as exc:
         report.notes.append(f"recalculated values were not compared with the reference: {exc}")
         return
-    ordered, _ = engine.result()
-    values = {sheet: dict(zip(book.sheets[sheet].formulas, items, strict=True)) for sheet, items in ordered.items()}
-    comparison = compare(book, expected, values, "embedded", 1e-9)
+    values = by_cell(book, engine_name, engine.result()[0])
+    comparison = compare(book, expected, values, engine_name, 1e-9)
     for item in comparison.mismatches:
         report.add(Finding(item["sheet"], item["cell"], "value_mismatches", item["expected"], item["found"],
                            "recalculated value differs from the reference trainer on the file's inputs"))
