@@ -25,7 +25,7 @@ from __future__ import annotations
 import re
 from collections import Counter
 from collections.abc import Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -42,7 +42,7 @@ from sheetnet.book.addresses import (
     quote_sheet,
 )
 from sheetnet.book.canonical import target_text
-from sheetnet.book.layout import BookLayout, Table
+from sheetnet.book.layout import BookLayout, Table, build_layout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs_checked
 from sheetnet.book.spec import BookInputs
@@ -243,11 +243,17 @@ def alignment_for(book: Workbook, layout: BookLayout, original: BookInputs | Non
     if looks_unmoved(book, layout):
         return None
     inputs = original if original is not None else read_inputs_checked(book, layout)[0]
+    # The anchors are texts outside the tables' bodies, which do not depend on how long the training
+    # record is: a record of one (the widest) step gives them all without replaying the whole run.
+    spec = layout.spec
+    if spec.record is not None:
+        longest = max(spec.record.steps, key=len)  # the widest step decides the record's columns
+        spec = replace(spec, record=replace(spec.record, steps=(longest,), epochs=(1,)))
     try:
-        numbers = compute(layout.spec, inputs)
+        numbers = compute(spec, inputs)
     except SheetNetError as exc:
         raise WorkbookFormatError(f"the workbook was restructured and cannot be re-aligned ({exc})") from None
-    return align(book, layout, plan.all_entries(layout, numbers))
+    return align(book, layout, plan.all_entries(build_layout(spec), numbers))
 
 
 def looks_unmoved(book: Workbook, layout: BookLayout) -> bool:
