@@ -318,7 +318,7 @@ class VerifyReport:
                   "signature": None if self.signature is None else self.signature.to_dict()}
         if len(self.comparisons) == 1:
             return {**first, **common, "ok": self.ok}
-        merged = {"ok": self.ok, "engine": "+".join(c.engine for c in self.comparisons), **common,
+        merged = {"ok": self.ok, "engine": "both" if len(self.comparisons) == 2 else "all", **common,
                   "tolerance": first["tolerance"],
                   "engines": {c.engine: c.to_dict() for c in self.comparisons}}
         for key in ("cells_compared", "max_abs_diff", "mismatches", "errors", "stale_cached", "formula_differences"):
