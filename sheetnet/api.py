@@ -68,12 +68,12 @@ def train(data, target, hidden=(4,), activation: str = "sigmoid", output: str | 
     return fit(as_table(data), _columns(target), run, arch, start=start, holdout=holdout)
 
 
-def score(model: Model | str | Path, data, threshold: float = 0.5) -> pd.DataFrame:
-    """Scores like ``sheetnet score``: input columns, probabilities (or values) and ``predicted``."""
+def score(model: Model | str | Path, data, threshold: float = 0.5, keep_other_columns: bool = True) -> pd.DataFrame:
+    """Scores like ``sheetnet score``: the data's columns, probabilities (or values) and ``predicted``."""
     from sheetnet.net.score import score_table
 
     model = load_model(model) if isinstance(model, str | Path) else model
-    return score_table(model, as_table(data), threshold)
+    return score_table(model, as_table(data), threshold, keep_other_columns)
 
 
 def build_workbook(path, data=None, target=None, model: Model | str | Path | None = None, trace_epochs=None,

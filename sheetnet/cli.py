@@ -113,6 +113,13 @@ def _rates(text: str) -> list[float]:
     return rates
 
 
+def _fraction(text: str) -> float:
+    value = _finite(text)
+    if not 0 <= value <= 1:
+        raise argparse.ArgumentTypeError(f"must be a number in [0, 1], got {text!r}")
+    return value
+
+
 def _holdout(text: str) -> float | str:
     if text == "auto":
         return text
@@ -215,7 +222,9 @@ def _parser() -> argparse.ArgumentParser:
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path)
     score_p.add_argument("data", type=Path)
-    score_p.add_argument("--threshold", type=_finite, default=0.5, help="decision threshold for probabilities")
+    score_p.add_argument("--threshold", type=_fraction, default=0.5, help="decision threshold for probabilities")
+    score_p.add_argument("--drop-other-columns", action="store_true",
+                         help="leave out the table's columns that are not model inputs (ids, the target...)")
     score_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
     score_p.add_argument("--force", action="store_true")
     return parser
@@ -283,7 +292,7 @@ def summary_lines(outcome: FitOutcome) -> list[str]:
 
 
 def cmd_train(args: argparse.Namespace) -> int:
-    check_output(args.out, args.force, inputs=[p for p in (args.data, args.init) if p])
+    check_output(args.out, args.force, inputs=[p for p in (args.data, args.init) if p], kind="model file")
     outcome, _, _ = run_fit(args)
     print("\n".join(summary_lines(outcome)))
     outcome.model.save(args.out, force=args.force)
@@ -292,10 +301,10 @@ def cmd_train(args: argparse.Namespace) -> int:
 
 
 def cmd_score(args: argparse.Namespace) -> int:
-    check_output(args.out, args.force, inputs=[args.model, args.data])
+    check_output(args.out, args.force, inputs=[args.model, args.data], kind="scores file")
     model = load_model(args.model)
     table = dataio.read_csv(args.data)
-    frame = score_table(model, table, args.threshold)
+    frame = score_table(model, table, args.threshold, keep_other_columns=not args.drop_other_columns)
     write_atomic(args.out, lambda tmp: frame.to_csv(tmp, index=False, float_format="%.17g"), force=args.force)
     if all(name in table.header for name in model.target) and model.target:
         try:
@@ -309,7 +318,7 @@ def cmd_score(args: argparse.Namespace) -> int:
 
 
 def cmd_build(args: argparse.Namespace) -> int:
-    check_output(args.out, args.force, inputs=[p for p in (args.data, args.model, args.init) if p])
+    check_output(args.out, args.force, inputs=[p for p in (args.data, args.model, args.init) if p], kind="workbook")
     options = RecordOptions(epochs=args.trace_epochs, rows=args.trace_rows)
     if args.model:
         spec, inputs, notes = _model_book(args, options)
@@ -396,7 +405,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 def cmd_verify(args: argparse.Namespace) -> int:
     if args.json:
-        check_output(args.json, args.force, inputs=[args.book])
+        check_output(args.json, args.force, inputs=[args.book], kind="JSON report")
     key = _key(args.key)
     try:
         bar = Progress(VERIFY_STAGES, "verifying", quiet=args.quiet)
@@ -433,9 +442,9 @@ def _signature_note(path: Path, key: bytes | None, error: Exception) -> str:
 
 def cmd_audit(args: argparse.Namespace) -> int:
     sources = [p for p in (args.book, args.against) if p]
-    for path in (args.json, args.annotate):
+    for path, kind in ((args.json, "JSON report"), (args.annotate, "workbook")):
         if path:
-            check_output(path, args.force, inputs=sources)
+            check_output(path, args.force, inputs=sources, kind=kind)
     bar = Progress(1, "auditing", quiet=args.quiet)
     bar(0)
     report = audit(args.book, against=args.against, key=_key(args.key), engine=args.engine)
@@ -450,7 +459,7 @@ def cmd_audit(args: argparse.Namespace) -> int:
 
 
 def cmd_extract(args: argparse.Namespace) -> int:
-    check_output(args.out, args.force, inputs=[args.book])
+    check_output(args.out, args.force, inputs=[args.book], kind="model file")
     model, note = extract(args.book, after_training=args.after_training)
     model.save(args.out, force=args.force)
     print(f"{note}; model written to {args.out}")
@@ -460,7 +469,7 @@ def cmd_extract(args: argparse.Namespace) -> int:
 def cmd_report(args: argparse.Namespace) -> int:
     from sheetnet.htmlreport import write_report
 
-    check_output(args.out, args.force, inputs=[args.source])
+    check_output(args.out, args.force, inputs=[args.source], kind="HTML report")
     write_report(args.source, args.out, force=args.force)
     print(f"report written to {args.out}")
     return 0
@@ -471,9 +480,9 @@ def cmd_rates(args: argparse.Namespace) -> int:
     from sheetnet.htmlreport import Section, loss_plot, page, write_html
     from sheetnet.rates import best, compare_rates, summary_rows
 
-    for path in (args.out, args.workbook):
+    for path, kind in ((args.out, "HTML report"), (args.workbook, "workbook")):
         if path:
-            check_output(path, args.force, inputs=[p for p in (args.data, args.init) if p])
+            check_output(path, args.force, inputs=[p for p in (args.data, args.init) if p], kind=kind)
     settings = settings_from(args)
     table = dataio.read_csv(args.data)
     start = load_model(args.init) if args.init else None

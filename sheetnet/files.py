@@ -15,9 +15,14 @@ from pathlib import Path
 
 from sheetnet.errors import UsageError
 
+#: What each kind of output file must be called (a model written as "book.xlsx" helps nobody).
+OUTPUT_SUFFIXES = {"model file": (".json",), "workbook": (".xlsx",), "scores file": (".csv",),
+                   "HTML report": (".html", ".htm"), "JSON report": (".json",)}
 
-def check_output(path: Path, force: bool, inputs: Iterable[Path] = ()) -> Path:
-    """Refuse an output path that cannot or must not be written; return it resolved."""
+
+def check_output(path: Path, force: bool, inputs: Iterable[Path] = (), kind: str | None = None) -> Path:
+    """Refuse an output path that cannot or must not be written, or whose name does not say what it
+    holds (``kind``: a key of OUTPUT_SUFFIXES); return it."""
     target = Path(path)
     if not target.name or target.is_dir():
         raise UsageError(f"{path}: output path is a folder, not a file")
@@ -27,6 +32,9 @@ def check_output(path: Path, force: bool, inputs: Iterable[Path] = ()) -> Path:
     for source in inputs:
         if _same_file(target, Path(source)):
             raise UsageError(f"{path}: output would overwrite the input file {source}")
+    if kind is not None and target.suffix.lower() not in OUTPUT_SUFFIXES[kind]:
+        raise UsageError(f"{path}: a {kind} must be named *{' or *'.join(OUTPUT_SUFFIXES[kind])}, "
+                         f"not *{target.suffix or ' (no extension)'}")
     if target.exists() and not force:
         raise UsageError(f"{path}: output file exists; use --force to overwrite it")
     return target

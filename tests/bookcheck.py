@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import json
 import os
+import re
 from pathlib import Path
 
 import numpy as np
@@ -76,3 +78,31 @@ def block_values(path: Path, sheet: str, top_left: str, rows: int, cols: int, va
     col = column_index_from_string(letters)
     return np.array([[values[(sheet, f"{get_column_letter(col + j)}{row + i}")] for j in range(cols)]
                      for i in range(rows)], dtype=float)
+
+
+_NUMBER_TEXT = re.compile(r"-?\d+(?:\.\d+)?(?:[eE][-+]?\d+)?")
+
+
+def same_up_to_rounding(a, b, tol: float) -> bool:
+    """Equal, except that numbers (also inside texts and parsed JSON) may differ by ``tol`` relative:
+    training on another machine's BLAS sums in another order, so trained numbers differ in the last
+    digits while everything else must be identical."""
+    if a == b or isinstance(a, bool) or isinstance(b, bool):
+        return a == b
+    if isinstance(a, int | float) and isinstance(b, int | float):
+        return abs(a - b) <= tol * max(1.0, abs(a), abs(b))
+    if isinstance(a, str) and isinstance(b, str):
+        numbers_a, numbers_b = _NUMBER_TEXT.findall(a), _NUMBER_TEXT.findall(b)
+        return _NUMBER_TEXT.split(a) == _NUMBER_TEXT.split(b) and len(numbers_a) == len(numbers_b) and all(
+            same_up_to_rounding(float(x), float(y), tol) for x, y in zip(numbers_a, numbers_b, strict=True))
+    if isinstance(a, dict) and isinstance(b, dict):
+        return a.keys() == b.keys() and all(same_up_to_rounding(a[k], b[k], tol) for k in a)
+    if isinstance(a, list) and isinstance(b, list):
+        return len(a) == len(b) and all(same_up_to_rounding(x, y, tol) for x, y in zip(a, b, strict=True))
+    return a == b
+
+
+def layout_description(path: Path) -> dict:
+    """The layout description stored in a workbook, parsed."""
+    sheet = openpyxl.load_workbook(path)["sheetnet_layout"]
+    return json.loads("".join(c.value for (c,) in sheet.iter_rows(min_row=2, max_col=1) if c.value))

@@ -120,10 +120,26 @@ def test_score_writes_probabilities_and_labels(good_csv, tmp_path, run_cli):
     code, _out, err = run_cli("score", tmp_path / "m.json", good_csv, "-o", tmp_path / "s.csv")
     assert code == 0, err
     frame = pd.read_csv(tmp_path / "s.csv")
-    assert list(frame.columns) == ["a", "b", "probability_no", "probability_yes", "predicted"]
+    assert list(frame.columns) == ["a", "b", "label", "probability_no", "probability_yes", "predicted"]
+    assert frame["label"].tolist() == pd.read_csv(good_csv)["label"].tolist()  # kept, to join results back
     assert ((frame["probability_no"] + frame["probability_yes"] - 1).abs() < 1e-12).all()
     assert set(frame["predicted"]) <= {"no", "yes"}
     assert (frame["predicted"] == "yes").tolist() == (frame["probability_yes"] >= 0.5).tolist()
+
+
+def test_score_keeps_ids_in_order_and_can_drop_them(tmp_path, run_cli):
+    rows = [[f"id-{i:03d}", 0.1 * i, (i * 7 % 5) / 5, "yes" if i % 3 else "no", "predicted?"] for i in range(12)]
+    data = write_csv(tmp_path / "d.csv", ["case_id", "a", "b", "label", "predicted"], rows)
+    assert run_cli("train", data, "--target", "label", "--inputs", "a,b", "--epochs", "5", "-o",
+                   tmp_path / "m.json")[0] == 0
+    assert run_cli("score", tmp_path / "m.json", data, "-o", tmp_path / "s.csv")[0] == 0
+    frame = pd.read_csv(tmp_path / "s.csv")
+    assert list(frame.columns) == ["case_id", "a", "b", "label", "predicted", "probability_no", "probability_yes",
+                                   "predicted_score"]  # the table's own 'predicted' keeps its name
+    assert frame["case_id"].tolist() == [r[0] for r in rows]
+    assert run_cli("score", tmp_path / "m.json", data, "--drop-other-columns", "-o", tmp_path / "t.csv")[0] == 0
+    assert list(pd.read_csv(tmp_path / "t.csv").columns) == ["a", "b", "probability_no", "probability_yes",
+                                                              "predicted"]
 
 
 def test_csv_dialects_give_the_same_model(tmp_path, run_cli):
@@ -160,3 +176,22 @@ def test_divergence_is_one_line_naming_the_epoch(tmp_path, run_cli):
     assert code == 1 and "diverged" in err and re.search(r"in epoch [0-9]+", err)
     assert len(err.strip().splitlines()) == 1 and "Warning" not in err
     assert not (tmp_path / "m.json").exists()
+
+
+@pytest.mark.parametrize("command, output, kind", [
+    (["train", "{data}", "--target", "label", "--epochs", "1", "-o"], "model.xlsx", "model file"),
+    (["build", "{data}", "--target", "label", "--epochs", "1", "-o"], "book.csv", "workbook"),
+    (["score", "{model}", "{data}", "-o"], "scores.json", "scores file"),
+    (["report", "{model}", "-o"], "report.pdf", "HTML report"),
+    (["extract", "{book}", "-o"], "model.xlsx", "model file"),
+    (["verify", "{book}", "--json"], "report.txt", "JSON report"),
+    (["audit", "{book}", "--annotate"], "marked.csv", "workbook"),
+], ids=["train", "build", "score", "report", "extract", "verify", "audit"])
+def test_output_names_must_say_what_they_hold(command, output, kind, good_csv, tmp_path, run_cli):
+    model, book = tmp_path / "m.json", tmp_path / "b.xlsx"
+    assert run_cli("train", good_csv, "--target", "label", "--epochs", "1", "-o", model)[0] == 0
+    assert run_cli("build", good_csv, "--target", "label", "--epochs", "1", "-o", book)[0] == 0
+    args = [a.format(data=good_csv, model=model, book=book) for a in command] + [str(tmp_path / output)]
+    code, _out, err = run_cli(*args)
+    assert code == 2 and f"a {kind} must be named" in err
+    assert not (tmp_path / output).exists()

@@ -34,20 +34,28 @@ def predicted_labels(model: Model, y: np.ndarray, threshold: float = 0.5) -> lis
     return [";".join(o for o, p in zip(model.outputs, row, strict=True) if p >= threshold) for row in y]
 
 
-def score_table(model: Model, table: dataio.Table, threshold: float = 0.5) -> pd.DataFrame:
-    """The model's input columns (as written in the file) plus scores and ``predicted``."""
+def score_table(model: Model, table: dataio.Table, threshold: float = 0.5, keep_other_columns: bool = True
+                ) -> pd.DataFrame:
+    """Every column of the table (as written in the file, in its order; only the model's inputs when
+    ``keep_other_columns`` is off), then the scores and ``predicted``, so results join back on ids.
+    A score column whose name the table already uses gets a ``_score`` suffix."""
     x = dataio.feature_matrix(table, model.inputs)
     y = predict_outputs(model, x)
     import pandas as pd  # imported here: the other commands start faster without it
 
-    frame = pd.DataFrame({name: table.column(name) for name in model.inputs})
-    columns = output_columns(model)
-    if model.task == "regression":
-        for k, name in enumerate(columns):
-            frame[name] = y[:, k]
-        return frame
-    values = np.hstack([1.0 - y, y]) if model.task == "binary" else y
-    for k, name in enumerate(columns):
+    kept = table.header if keep_other_columns else model.inputs
+    frame = pd.DataFrame({name: table.column(name) for name in kept})
+    names = output_columns(model) + ([] if model.task == "regression" else ["predicted"])
+    unique = [_free_name(name, frame.columns) for name in names]
+    values = y if model.task != "binary" else np.hstack([1.0 - y, y])
+    for k, name in enumerate(unique[: values.shape[1]]):
         frame[name] = values[:, k]
-    frame["predicted"] = predicted_labels(model, y, threshold)
+    if model.task != "regression":
+        frame[unique[-1]] = predicted_labels(model, y, threshold)
     return frame
+
+
+def _free_name(name: str, taken) -> str:
+    while name in taken:
+        name += "_score"
+    return name
