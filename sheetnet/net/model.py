@@ -166,6 +166,7 @@ def model_from_dict(data: Any) -> Model:
         if layer.activation.name == "softmax":
             raise ModelFileError(f"layers[{k}].activation.name: softmax is allowed on the output layer only")
     task = _choice(data, "task", TASKS, default=_default_task(layers[-1].activation))
+    _check_task_output(task, layers[-1].activation, len(layers) - 1)
     loss = _choice(data, "loss", ("squared", "cross-entropy"), default="squared")
     _check_loss(loss, layers[-1].activation, len(layers) - 1)
     classes = tuple(str(c) for c in _list(data, "classes", default=[]))
@@ -185,6 +186,17 @@ def _default_task(output: Activation) -> str:
     return {"softmax": "multiclass", "sigmoid": "binary", "step": "binary"}.get(output.name, "regression")
 
 
+#: Output activations each task can have: a class task's outputs must be probabilities or 0/1.
+TASK_OUTPUTS = {"binary": ("sigmoid", "step"), "multiclass": ("softmax", "sigmoid", "step"),
+                "multilabel": ("sigmoid", "step"), "regression": ("identity", "sigmoid", "tanh", "relu")}
+
+
+def _check_task_output(task: str, output: Activation, last: int) -> None:
+    if output.name not in TASK_OUTPUTS[task]:
+        raise ModelFileError(f"layers[{last}].activation: a {task} model's output layer cannot be {output.name!r} "
+                             f"(expected {' or '.join(TASK_OUTPUTS[task])}), so 'task' and the output layer disagree")
+
+
 def _check_loss(loss: str, output: Activation, last: int) -> None:
     try:
         check_pair(loss, output)
@@ -199,6 +211,11 @@ def _check_classes(task: str, classes: tuple[str, ...], outputs: tuple[str, ...]
         raise ModelFileError(f"classes: a binary model has two class labels, got {len(classes)}")
     if task == "multiclass" and classes and len(classes) != len(outputs):
         raise ModelFileError("classes: a multiclass model has one class label per output")
+    if task == "multiclass" and len(outputs) < 2:
+        raise ModelFileError(f"outputs: a multiclass model has one output unit per class (two or more), got "
+                             f"{len(outputs)}")
+    if task in ("multilabel", "regression") and classes:
+        raise ModelFileError(f"classes: a {task} model has no class labels (its outputs are named in 'outputs')")
     if len(set(classes)) != len(classes):
         raise ModelFileError("classes: labels must be unique")
 
