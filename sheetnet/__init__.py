@@ -20,8 +20,7 @@ from sheetnet.interop import from_sklearn
 from sheetnet.net.activations import Activation
 from sheetnet.net.model import Layer, Model, Scaling, load_model
 from sheetnet.net.train import TrainSettings
-
-__version__ = "0.1.0"
+from sheetnet.version import __version__
 
 _ESTIMATORS = ("SheetNetClassifier", "SheetNetRegressor")
 

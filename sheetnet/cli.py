@@ -17,7 +17,6 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet import __version__
 from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
 from sheetnet.book.signing import key_id, key_readable_by_others, new_key_text, read_key
 from sheetnet.checks.annotate import annotate
@@ -44,6 +43,7 @@ from sheetnet.net.score import score_table
 from sheetnet.net.train import TrainSettings
 from sheetnet.progress import Progress
 from sheetnet.report import audit_lines, verify_lines
+from sheetnet.version import __version__
 
 
 class _Parser(argparse.ArgumentParser):

@@ -9,10 +9,10 @@ from pathlib import Path
 import numpy as np
 
 from sheetnet.book.addresses import MAX_COLS, MAX_ROWS
-from sheetnet.book.describe import describe
+from sheetnet.book.describe import describe, description_text
 from sheetnet.book.layout import BookLayout, build_layout
 from sheetnet.book.numbers import compute
-from sheetnet.book.signing import CellDigests
+from sheetnet.book.signing import CellDigests, sign
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.book.write import write_book
 from sheetnet.errors import UsageError, WorkbookFormatError
@@ -22,6 +22,7 @@ from sheetnet.net import data as dataio
 from sheetnet.net.fit import FitOutcome, fingerprint
 from sheetnet.net.model import Layer, Model
 from sheetnet.net.train import TrainSettings, epoch_batches
+from sheetnet.version import __version__
 
 #: Default cap on formula cells; ``--max-cells`` raises it (spreadsheet applications slow down
 #: well before their hard limits).
@@ -118,8 +119,6 @@ def make_inputs(model: Model, table: dataio.Table | None, kind: str, settings: T
 
 def provenance(model: Model, table: dataio.Table | None, settings: TrainSettings | None,
                options: RecordOptions, extra: list[tuple[str, str]]) -> list[tuple[str, str]]:
-    from sheetnet import __version__
-
     lines = [("tool", f"sheetnet {__version__}")]
     if table is not None:
         lines += [("data file", Path(table.source).name), ("data SHA-256", fingerprint(table)),
@@ -174,7 +173,10 @@ def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool =
     digests = CellDigests() if sign_key is not None else None
 
     def describe_with(fingerprints, sheets) -> str:
-        return describe(layout, inputs, sheets, fingerprints, digests, sign_key)
+        data = describe(layout, inputs, sheets, fingerprints)
+        if sign_key is not None:
+            sign(data, layout, digests, sign_key)
+        return description_text(data)
 
     def write(tmp: Path) -> None:
         with paused_gc():

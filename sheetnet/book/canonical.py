@@ -40,6 +40,21 @@ def constant_text(value: object) -> str | None:
     return "e:" + str(value)  # a spreadsheet error value
 
 
+#: Relative change below which a number counts as unchanged (a round trip through an application
+#: that stores 15 significant digits must not read as an edit).
+SAME_NUMBER = 1e-13
+
+
+def same_value(a, b) -> bool:
+    """Two cell values are the same: numbers within SAME_NUMBER relative, empty and "" alike."""
+    numbers = (float, int)
+    if type(a) in numbers and type(b) in numbers:
+        return a == b or abs(a - b) <= SAME_NUMBER * max(abs(a), abs(b))
+    if a in (None, "") and b in (None, ""):
+        return True
+    return type(a) is type(b) and a == b
+
+
 def target_text(refers_to: str) -> str:
     """A defined name's target without '=', '$' or sheet quotes, upper-cased."""
     return refers_to.replace("$", "").replace("'", "").lstrip("=").upper()

@@ -11,13 +11,13 @@ import hashlib
 import json
 from typing import Any
 
-from sheetnet.book.addresses import defined_name_target
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.signing import CellDigests, names_digest, signature
 from sheetnet.book.spec import BookInputs, BookSpec
+from sheetnet.version import __version__
 
 FORMAT = "sheetnet-layout"
 VERSION = 1
+SIGNATURE_ALGORITHM = "HMAC-SHA256"
 
 
 class Fingerprints:
@@ -69,21 +69,16 @@ def inputs_to_dict(inputs: BookInputs) -> dict[str, Any]:
     }
 
 
-def describe(layout: BookLayout, inputs: BookInputs, sheets: list[str], fingerprints: Fingerprints,
-             cells: CellDigests | None = None, key: bytes | None = None) -> str:
-    """The JSON text stored on the hidden layout sheet; with ``key``, signed over ``cells`` (the
-    digests of every cell written) and the defined names."""
-    from sheetnet import __version__
-
-    defined = layout.defined_names()
-    data = {
+def describe(layout: BookLayout, inputs: BookInputs, sheets: list[str], fingerprints: Fingerprints) -> dict:
+    """The description stored on the hidden layout sheet (as JSON text: ``description_text``)."""
+    return {
         "format": FORMAT, "version": VERSION, "tool": f"sheetnet {__version__}",
         "spec": spec_to_dict(layout.spec), "sheets": sheets,
-        "names": {name: block.__dict__ for name, block in defined.items()},
+        "names": {name: block.__dict__ for name, block in layout.defined_names().items()},
         "fingerprints": fingerprints.to_dict(), "inputs": inputs_to_dict(inputs),
     }
-    if key is not None and cells is not None:
-        data["fingerprints"]["cells"] = cells.to_dict()
-        data["fingerprints"]["names"] = names_digest({name: defined_name_target(b) for name, b in defined.items()})
-        data["signature"] = signature(data, key)
+
+
+def description_text(data: dict) -> str:
+    """Compact JSON with sorted keys: the form the signature is computed over."""
     return json.dumps(data, separators=(",", ":"), sort_keys=True)

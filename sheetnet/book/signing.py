@@ -15,19 +15,22 @@ from __future__ import annotations
 
 import hashlib
 import hmac
-import json
 import os
 import secrets
 import stat
 from dataclasses import dataclass
 from pathlib import Path
 
-from sheetnet.book.canonical import constant_text, normalize_formula, target_text
-from sheetnet.book.layout import LAYOUT
+from sheetnet.book.addresses import defined_name_target
+from sheetnet.book.canonical import constant_text, normalize_formula, same_value, target_text
+from sheetnet.book.describe import SIGNATURE_ALGORITHM as ALGORITHM
+from sheetnet.book.describe import description_text
+from sheetnet.book.layout import LAYOUT, BookLayout, build_layout
+from sheetnet.book.read import input_cells
+from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.xlsxread import Workbook
 from sheetnet.errors import UsageError
 
-ALGORITHM = "HMAC-SHA256"
 KEY_BYTES = 32
 _CONTEXT = b"sheetnet workbook signature v1\n"
 
@@ -69,15 +72,19 @@ def key_id(key: bytes) -> str:
 
 def canonical_json(data: dict) -> str:
     """The description as signed: compact, keys sorted, without its signature."""
-    return json.dumps({k: v for k, v in data.items() if k != "signature"}, separators=(",", ":"), sort_keys=True)
+    return description_text({k: v for k, v in data.items() if k != "signature"})
 
 
 def mac(data: dict, key: bytes) -> str:
     return hmac.new(key, _CONTEXT + canonical_json(data).encode("utf-8"), hashlib.sha256).hexdigest()
 
 
-def signature(data: dict, key: bytes) -> dict:
-    return {"algorithm": ALGORITHM, "key_id": key_id(key), "mac": mac(data, key)}
+def sign(data: dict, layout: BookLayout, cells: CellDigests, key: bytes) -> None:
+    """Add the digests of every cell written and of the defined names, then the signature over all."""
+    data["fingerprints"]["cells"] = cells.to_dict()
+    data["fingerprints"]["names"] = names_digest({name: defined_name_target(block)
+                                                 for name, block in layout.defined_names().items()})
+    data["signature"] = {"algorithm": ALGORITHM, "key_id": key_id(key), "mac": mac(data, key)}
 
 
 class CellDigests:
@@ -86,9 +93,15 @@ class CellDigests:
     def __init__(self) -> None:
         self._sheets: dict[str, hashlib._Hash] = {}
 
-    def add(self, sheet: str, row: int, col: int, formula: str | None, value: object) -> None:
-        """One cell: its formula text (without or with '='), else its constant."""
-        text = "f:" + normalize_formula(formula) if formula is not None else constant_text(value)
+    def add(self, sheet: str, row: int, col: int, formula: str | None, value: object, is_input: bool = False) -> None:
+        """One cell: its formula text (without or with '='), else its constant. An input cell's number
+        counts only by its place: the signed description holds its value, which the check compares
+        within the round-trip tolerance (applications round numbers in their own ways: no digit count
+        survives every one of them)."""
+        if formula is not None:
+            text = "f:" + normalize_formula(formula)
+        else:
+            text = "i" if is_input and value not in (None, "") else constant_text(value)
         if text is not None:
             self._sheets.setdefault(sheet, hashlib.sha256()).update(f"{row},{col},{text}\n".encode())
 
@@ -102,15 +115,17 @@ def names_digest(names: dict[str, str]) -> str:
     return hashlib.sha256(lines.encode()).hexdigest()
 
 
-def file_digests(book: Workbook, sheets: list[str]) -> tuple[dict[str, str], str]:
-    """The cell digests of ``sheets`` and the names digest of the workbook as it is now."""
+def file_digests(book: Workbook, sheets: list[str], inputs: set) -> tuple[dict[str, str], str]:
+    """The cell digests of ``sheets`` and the names digest of the workbook as it is now; ``inputs``
+    holds the (sheet, (row, col)) of the input cells."""
     digests = CellDigests()
     for name in sheets:
         cells = book.sheets.get(name)
         if cells is None:
             continue
         for row, col in sorted(cells.values):
-            digests.add(name, row, col, cells.formulas.get((row, col)), cells.values[row, col])
+            digests.add(name, row, col, cells.formulas.get((row, col)), cells.values[row, col],
+                        (name, (row, col)) in inputs)
     names = {name: target for name, target in book.names.items() if not name.startswith("_xlnm")}
     return digests.to_dict(), names_digest(names)
 
@@ -138,24 +153,42 @@ def check_signature(book: Workbook, data: dict | None, key: bytes) -> SignatureC
     if data is None:
         return SignatureCheck("broken", "the layout description cannot be read, so nothing it signed can be "
                                         "trusted", mine)
-    if not isinstance(stored, dict):
+    if stored is None:
         return SignatureCheck("missing", "the workbook carries no signature (it was built without --sign-key, "
                                          "or the signature was removed)", mine)
-    if stored.get("key_id") != mine:
-        return SignatureCheck("wrong-key", f"the signature was made with key id {stored.get('key_id')!s:.16}, not "
+    if not isinstance(stored, dict) or set(stored) != {"algorithm", "key_id", "mac"} or \
+            stored["algorithm"] != ALGORITHM:
+        return SignatureCheck("broken", f"the signature block was altered (a {ALGORITHM} signature has exactly "
+                                        "'algorithm', 'key_id' and 'mac')", mine)
+    if stored["key_id"] != mine:
+        return SignatureCheck("wrong-key", f"the signature was made with key id {stored['key_id']!s:.16}, not "
                                            f"with the key given (key id {mine}); with the wrong key nothing can be "
                                            "said", mine)
-    if not hmac.compare_digest(str(stored.get("mac", "")), mac(data, key)):
+    if not hmac.compare_digest(str(stored["mac"]), mac(data, key)):
         return SignatureCheck("broken", "the layout description was changed after signing", mine)
-    prints = data.get("fingerprints", {})  # covered by the signature, so as built
-    cells, names = file_digests(book, [sheet for sheet in data.get("sheets", []) if sheet != LAYOUT])
-    changed = sorted(set(cells) | set(prints.get("cells", {})), key=str)
-    changed = [s for s in changed if cells.get(s) != prints.get("cells", {}).get(s)]
-    what = []
-    if changed:
-        what.append(f"cells changed after signing on sheet(s) {', '.join(changed)}")
-    if names != prints.get("names"):
-        what.append("defined names changed after signing")
+    what = _changed_since_signing(book, data)
     if what:
         return SignatureCheck("broken", "; ".join(what), mine)
     return SignatureCheck("valid", "the layout description, every cell and every defined name are as signed", mine)
+
+
+def _changed_since_signing(book: Workbook, data: dict) -> list[str]:
+    """What differs from the signed description (authentic once the MAC holds): cells (formulas and
+    texts by digest, input numbers against the signed values) and defined names."""
+    spec, _ = read_spec(data["spec"])
+    original = None if spec is None else read_original_inputs(data["inputs"], spec)[0]
+    if original is None:  # cannot happen for a description sheetnet signed
+        return ["the signed description cannot be read"]
+    layout = build_layout(spec)
+    inputs = {(sheet, pos): value for sheet, pos, value, _ in input_cells(layout, original)}
+    prints = data.get("fingerprints", {})
+    cells, names = file_digests(book, [sheet for sheet in data.get("sheets", []) if sheet != LAYOUT], set(inputs))
+    changed = {s for s in set(cells) | set(prints.get("cells", {})) if cells.get(s) != prints.get("cells", {}).get(s)}
+    for (sheet, (row, col)), value in inputs.items():
+        found = book.sheets[sheet].values.get((row, col)) if sheet in book.sheets else None
+        if not same_value(found, value):
+            changed.add(sheet)
+    what = [f"cells changed after signing on sheet(s) {', '.join(sorted(changed))}"] if changed else []
+    if names != prints.get("names"):
+        what.append("defined names changed after signing")
+    return what

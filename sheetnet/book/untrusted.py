@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from sheetnet.book.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
-from sheetnet.book.describe import FORMAT, VERSION
+from sheetnet.book.describe import FORMAT, SIGNATURE_ALGORITHM, VERSION
 from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
 from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
@@ -37,7 +37,6 @@ from sheetnet.errors import DescriptionError, WorkbookFormatError
 #: The description's text is refused beyond this many characters (a million-cell workbook's is
 #: about 30 million).
 MAX_DESCRIPTION_CHARS = 128 * 1024**2
-SIGNATURE_ALGORITHM = "HMAC-SHA256"
 _TOP_KEYS = ("format", "version", "tool", "spec", "sheets", "names", "fingerprints", "inputs")
 #: What verify needs from the description; extract needs the same.
 NEEDED_TO_VERIFY = ("format", "spec")

@@ -137,7 +137,7 @@ def _digest(digests: CellDigests | None, sheet: str, entries: Iterable[Entry]) -
     """Fold cells, given in row and column order, into the signature's cell digests."""
     if digests is not None:
         for e in entries:
-            digests.add(sheet, e.row, e.col, e.content if e.role == "formula" else None, e.content)
+            digests.add(sheet, e.row, e.col, e.content if e.role == "formula" else None, e.content, e.role == "input")
 
 
 def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordered: bool = False,

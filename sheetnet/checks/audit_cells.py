@@ -11,7 +11,7 @@ from collections import Counter
 
 from sheetnet.book import layout as L
 from sheetnet.book.addresses import Cell, a1, parse_a1
-from sheetnet.book.canonical import normalize_formula, target_text
+from sheetnet.book.canonical import normalize_formula, same_value, target_text
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import InvalidInput, input_cells
 from sheetnet.book.spec import BookInputs
@@ -21,19 +21,7 @@ from sheetnet.checks.findings import AuditReport, Finding, plain
 
 VOLATILE = ("NOW", "TODAY", "RAND", "RANDBETWEEN", "OFFSET", "INDIRECT", "INFO", "CELL", "RANDARRAY")
 _VOLATILE = re.compile(r'"(?:[^"]|"")*"|\b(' + "|".join(VOLATILE) + r")\s*\(", re.I)
-#: Relative change below which a number counts as unchanged (a round trip through an application
-#: that stores 15 significant digits must not read as an edit).
-SAME_NUMBER = 1e-13
 LABEL_ROLES = ("title", "text", "header", "label")
-
-
-def same(a, b) -> bool:
-    numbers = (float, int)
-    if type(a) in numbers and type(b) in numbers:
-        return a == b or abs(a - b) <= SAME_NUMBER * max(abs(a), abs(b))
-    if a in (None, "") and b in (None, ""):
-        return True
-    return type(a) is type(b) and a == b
 
 
 # ---------------------------------------------------------------- structure
@@ -158,7 +146,7 @@ def check_inputs(report: AuditReport, book: Workbook, layout: BookLayout, origin
             continue
         new = cells.values.get(here)
         reason = reasons.get(where)
-        if not same(new, old) or reason:
+        if not same_value(new, old) or reason:
             note = f"{what} changed" + (f" to a value the network cannot use: {reason}" if reason else "")
             report.add(Finding(where.sheet, a1(*here), "input_edits", old, plain(new), note))
 
@@ -222,7 +210,7 @@ def _check_label(report: AuditReport, cells: SheetCells, where: Cell, text) -> N
     if here in cells.formulas:
         report.add(Finding(where.sheet, a1(*here), "formula_edits", text, "=" + cells.formulas[here],
                            "a formula typed over a label"))
-    elif not same(cells.values.get(here), float(text) if isinstance(text, int) else text):
+    elif not same_value(cells.values.get(here), float(text) if isinstance(text, int) else text):
         report.add(Finding(where.sheet, a1(*here), "structural", text, plain(cells.values.get(here)),
                            "a label or header was changed"))
 

@@ -15,14 +15,13 @@ import numpy as np
 
 from sheetnet.book import plan
 from sheetnet.book.addresses import Block, Cell, cell_name
-from sheetnet.book.canonical import normalize_formula
+from sheetnet.book.canonical import SAME_NUMBER, normalize_formula
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.xlsxread import Workbook, read_workbook
 from sheetnet.checks.align import Alignment, alignment_for
-from sheetnet.checks.audit_cells import SAME_NUMBER
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model

@@ -19,6 +19,7 @@ from sheetnet.net.metrics import Metrics, evaluate
 from sheetnet.net.model import Model
 from sheetnet.net.network import scaled_inputs
 from sheetnet.net.train import TrainResult, TrainSettings, init_layers, seed_streams, train
+from sheetnet.version import __version__
 
 AUTO_HOLDOUT_FRACTION = 0.2
 #: With ``holdout="auto"``, smaller data sets are trained on every row (worked examples).
@@ -174,8 +175,6 @@ def fit(table: dataio.Table, target: tuple[str, ...], settings: TrainSettings, a
 
 
 def _provenance(table, settings, result, fraction, train_rows, hold_rows, train_metrics, hold_metrics) -> dict:
-    from sheetnet import __version__
-
     return {
         "tool": f"sheetnet {__version__}",
         "settings": settings.to_dict(),
