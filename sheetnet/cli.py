@@ -206,11 +206,13 @@ def _parser() -> argparse.ArgumentParser:
     extract_p.add_argument("--after-training", action="store_true",
                            help="take the parameters after the last step of the training record")
     extract_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
-    extract_p.add_argument("--force", action="store_true")
+    extract_p.add_argument("--force", action="store_true", help="overwrite an existing model file")
+    extract_p.add_argument("--quiet", action="store_true", help="no progress bar (extract shows none)")
     report_p = commands.add_parser("report", help="an HTML report with plots for a model file or a workbook")
     report_p.add_argument("source", type=Path, help="MODEL.json or BOOK.xlsx")
     report_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
-    report_p.add_argument("--force", action="store_true")
+    report_p.add_argument("--force", action="store_true", help="overwrite an existing report")
+    report_p.add_argument("--quiet", action="store_true", help="no progress bar (report shows none)")
     rates_p = commands.add_parser("rates", help="compare learning rates from the same initial weights")
     add_train_flags(rates_p)
     rates_p.add_argument("--rates", type=_rates, required=True, help="learning rates to compare, e.g. 0.01,0.1,1")
@@ -319,6 +321,7 @@ def cmd_score(args: argparse.Namespace) -> int:
 
 def cmd_build(args: argparse.Namespace) -> int:
     check_output(args.out, args.force, inputs=[p for p in (args.data, args.model, args.init) if p], kind="workbook")
+    key = _key(args.sign_key)  # before any training: a bad key file fails at once
     options = RecordOptions(epochs=args.trace_epochs, rows=args.trace_rows)
     if args.model:
         spec, inputs, notes = _model_book(args, options)
@@ -329,7 +332,6 @@ def cmd_build(args: argparse.Namespace) -> int:
         print("\n".join(summary_lines(outcome)))
         spec, inputs = from_fit(outcome, table, settings, options)
         notes = []
-    key = _key(args.sign_key)
     try:
         result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells,
                                 progress=Progress(1, "writing", quiet=args.quiet), sign_key=key)

@@ -174,12 +174,12 @@ def book_sections(path: Path) -> list[Section]:
 
     from sheetnet.book.numbers import compute
     from sheetnet.book.read import read_inputs, read_layout
-    from sheetnet.book.xlsxread import read_workbook
+    from sheetnet.book.untrusted import read_returned_workbook
     from sheetnet.checks.verify import verify
     from sheetnet.net.metrics import evaluate
     from sheetnet.report import verify_lines
 
-    book = read_workbook(path)
+    book = read_returned_workbook(path)
     layout, _ = read_layout(book)
     inputs = read_inputs(book, layout)
     spec = layout.spec

@@ -92,7 +92,7 @@ def audit_lines(report) -> list[str]:
             detail = ""
             if finding.expected is not None or finding.found is not None:
                 detail = f" (expected {finding.expected!r}, found {finding.found!r})"
-            lines.append(f"  {where}: {finding.note}{detail}")
+            lines.append(f"  {where}: {finding.note}{detail}" if where else f"  {finding.note}{detail}")
         if count > 20:
             lines.append(f"  ... and {count - 20} more (see --json)")
     lines += [f"note: {note}" for note in report.notes]

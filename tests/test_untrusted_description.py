@@ -191,7 +191,11 @@ def test_short_or_shared_key_files(signed, tmp_path, run_cli):
     short = tmp_path / "short.key"
     short.write_text("abcd\n")
     code, _, err = run_cli("verify", signed["book"], "--key", short)
-    assert code == 2 and "at least 32 bytes" in err
+    assert code == 2 and "at least 32 random bytes" in err
+    for name, content in (("zeros.key", b"\0" * 64), ("huge.key", bytes(range(256)) * 40)):
+        (tmp_path / name).write_bytes(content)
+        code, _, err = run_cli("verify", signed["book"], "--key", tmp_path / name)
+        assert code == 2 and "sheetnet new-key" in err, err
     shared = tmp_path / "shared.key"
     shared.write_text(signed["key"].read_text())
     shared.chmod(0o644)
@@ -243,3 +247,88 @@ def test_signature_survives_a_round_trip_of_its_own_text(signed):
     data = read_description(signed["book"])
     assert mac(data, read_key(signed["key"])) == data["signature"]["mac"]
     assert json.loads(canonical_json(data)) == {k: v for k, v in data.items() if k != "signature"}
+
+
+# ---------------------------------------------------------------- what the description says of itself
+
+
+@pytest.mark.parametrize("name, mutate, where", [
+    ("fingerprint", lambda d: d["fingerprints"]["formulas"].__setitem__("Scoring", "0" * 64),
+     "fingerprints.formulas.Scoring"),
+    ("momentum when off", lambda d: d["inputs"].__setitem__("momentum", 0.5), "inputs.momentum"),
+    ("L2 when off", lambda d: d["inputs"].__setitem__("l2", 0.5), "inputs.l2"),
+    ("calculator", lambda d: d["inputs"]["calculator"].__setitem__(0, 1.5), "inputs.calculator"),
+    ("provenance", lambda d: d["spec"]["provenance"][1].__setitem__(1, "another.csv"), "Guide"),
+    ("scaling method", lambda d: d["spec"].__setitem__("scaling_method", "minmax"), "Guide"),
+], ids=lambda v: v if isinstance(v, str) else "")
+def test_alterations_of_parts_no_check_uses_are_found(name, mutate, where, book, tmp_path, run_cli):
+    def change(data):
+        mutate(data)
+        return data
+
+    altered = alter_description(book, tmp_path / "a.xlsx", change)
+    report = audit(altered)
+    found = [(f.kind, f.sheet or f.cell) for f in report.findings]
+    if where == "Guide":
+        assert ("structural", "Guide") in found and report.total == 1, found
+    else:
+        assert [f.cell for f in report.of("description")] == [where] and report.total == 1, found
+
+
+def test_stored_inputs_the_trainer_cannot_replay_are_a_finding(tmp_path, run_cli, capsys):
+    rows = [[0.1 * i, (i * 7 % 5) / 5, 3.0 * i - 1.0] for i in range(12)]
+    data = write_csv(tmp_path / "r.csv", ["a", "b", "y"], rows)
+    assert run_cli("build", data, "--target", "y", "--hidden", "none", "--epochs", "2", "--quiet",
+                   "-o", tmp_path / "r.xlsx")[0] == 0
+    capsys.readouterr()
+
+    def explosive(data):
+        data["inputs"]["learning_rate"] = 1e300  # a linear regression diverges at once
+        return data
+
+    report = audit(alter_description(tmp_path / "r.xlsx", tmp_path / "a.xlsx", explosive))
+    notes = [f.note for f in report.of("description")]
+    assert any("cannot replay the stored original inputs" in n for n in notes)
+    assert report.of("input_edits")[0].cell == "B3"  # the file's learning rate is not the stored one
+    assert capsys.readouterr().err == ""  # no numpy warnings
+
+
+@pytest.mark.parametrize("damage, words", [
+    ("deleted", "was deleted"),
+    ("renamed", "was renamed to 'notes'"),
+    ("bloated", "the layout sheet holds"),
+    ("huge", "the layout sheet is"),
+])
+def test_a_missing_or_damaged_layout_sheet_is_a_finding(damage, words, book, tmp_path, run_cli):
+    import zipfile
+
+    out = tmp_path / "damaged.xlsx"
+    with zipfile.ZipFile(book) as src, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for item in src.infolist():
+            data = src.read(item.filename)
+            if item.filename == "xl/workbook.xml" and damage in ("deleted", "renamed"):
+                new = b'name="notes"' if damage == "renamed" else b'name="gone"'
+                data = data.replace(b'name="sheetnet_layout"', new)
+            if item.filename == "xl/worksheets/sheet8.xml" and damage == "deleted":
+                data = data.replace(b"sheetnet layout description", b"nothing here")
+            if item.filename == "xl/worksheets/sheet8.xml" and damage == "bloated":
+                rows = "".join(f'<row r="{r}"><c r="A{r}"/></row>' for r in range(100, 20_000))
+                data = data.replace(b"</sheetData>", rows.encode() + b"</sheetData>")
+            if item.filename == "xl/worksheets/sheet8.xml" and damage == "huge":
+                data = data.replace(b"</sheetData>", b"<!-- " + bytes(random.Random(3).choices(range(97, 123),
+                                                                                            k=8_000_000)) + b" -->"
+                                    + b"</sheetData>")
+            dst.writestr(item, data)
+    code, out_text, err = run_cli("audit", out)
+    assert code == 3 and words in out_text, out_text + err
+    code, _out, err = run_cli("verify", out)
+    assert code == 2 and words in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_description_longer_than_the_workbook_could_need_is_refused(book, tmp_path):
+    def padded(data):
+        data["spec"]["provenance"] = [["note", "".join(random.Random(4).choices("abcdef", k=90_000))]] * 40
+        return data
+
+    report = audit(alter_description(book, tmp_path / "a.xlsx", padded))
+    assert report.total == 1 and "the workbook's sheets hold enough for at most" in report.of("description")[0].note

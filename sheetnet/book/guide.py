@@ -71,9 +71,15 @@ def _record_lines(layout: BookLayout) -> list[tuple[str, str, str]]:
     ]
 
 
+SCALING_TEXT = {"standard": "standard: offset = mean, divisor = population standard deviation of the training rows",
+                "minmax": "min-max: offset = minimum, divisor = maximum - minimum of the training rows",
+                "none": "none: offset 0, divisor 1"}
+
+
 def _provenance_lines(layout: BookLayout) -> list[tuple[str, str, str]]:
     lines = [("title", "Provenance", "")]
     lines += [("label", key, value) for key, value in layout.spec.provenance]
+    lines.append(("label", "input scaling", SCALING_TEXT[layout.spec.scaling_method]))
     return lines
 
 

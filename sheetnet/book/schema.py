@@ -215,9 +215,28 @@ def read_original_inputs(data: Any, spec: BookSpec) -> tuple[BookInputs | None, 
     l2 = check.number(raw["l2"], "inputs.l2", 0.0)
     if check.problems:
         return None, check.problems
+    _inputs_follow_the_spec(check, spec, rows, calculator, threshold, momentum, l2)
+    if check.problems:
+        return None, check.problems
     return BookInputs(layers=layers, offset=np.array(offset), divisor=np.array(divisor), data=rows,
                       threshold=threshold, calculator=np.array(calculator), learning_rate=rate, momentum=momentum,
                       l2=l2, initial=initial), []
+
+
+def _inputs_follow_the_spec(check: Checker, spec: BookSpec, rows, calculator: list[float], threshold: float,
+                            momentum: float, l2: float) -> None:
+    """Values ``build`` derives from the spec: settings that are off are 0, a task without classes
+    keeps the default threshold, and the calculator starts from the first case."""
+    record = spec.record
+    if (record is None or not record.momentum) and momentum != 0.0:
+        check.add("inputs.momentum", f"{momentum!r}, but the training record uses no momentum")
+    if (record is None or not record.l2) and l2 != 0.0:
+        check.add("inputs.l2", f"{l2!r}, but the training record uses no L2 penalty")
+    if not spec.is_classification and threshold != 0.5:
+        check.add("inputs.threshold", f"{threshold!r}, but a {spec.task} workbook has no decision threshold")
+    first = list(rows[0][: len(spec.inputs)]) if rows else [0.0] * len(spec.inputs)
+    if calculator != first:
+        check.add("inputs.calculator", "differs from the first case, which the calculator starts from")
 
 
 def _layers(check: Checker, value: Any, where: str, spec: BookSpec) -> tuple[Layer, ...] | None:

@@ -40,23 +40,32 @@ def new_key_text() -> str:
     return secrets.token_hex(KEY_BYTES) + "\n"
 
 
+#: A key file is small: anything larger is not a key (and is not read whole).
+MAX_KEY_FILE_BYTES = 1024
+
+
 def read_key(path: Path) -> bytes:
-    """The key in a key file: 64 or more hexadecimal digits, or at least 32 raw bytes."""
+    """The key in a key file: 64 to 1,024 hexadecimal digits (what ``sheetnet new-key`` writes), or 32 to
+    1,024 raw bytes that look random (at least 16 different byte values)."""
     try:
-        raw = Path(path).read_bytes()
+        with Path(path).open("rb") as handle:
+            raw = handle.read(MAX_KEY_FILE_BYTES + 1)
     except FileNotFoundError:
         raise UsageError(f"{path}: key file not found") from None
     except OSError as exc:
-        raise UsageError(f"{path}: cannot read the key file ({exc.strerror})") from None
+        raise UsageError(f"{path}: cannot read the key file ({exc.strerror or exc})") from None
+    if len(raw) > MAX_KEY_FILE_BYTES:
+        raise UsageError(f"{path}: not a key file (over {MAX_KEY_FILE_BYTES:,} bytes); make one with "
+                         "'sheetnet new-key'")
     text = raw.strip()
     try:
         key = bytes.fromhex(text.decode("ascii")) if len(text) >= 2 * KEY_BYTES else None
     except (UnicodeDecodeError, ValueError):
         key = None
     key = key if key is not None else raw
-    if len(key) < KEY_BYTES:
-        raise UsageError(f"{path}: a key needs at least {KEY_BYTES} bytes (64 hexadecimal digits); make one with "
-                         "'sheetnet new-key'")
+    if len(key) < KEY_BYTES or len(set(key)) < 16:
+        raise UsageError(f"{path}: a key needs at least {KEY_BYTES} random bytes (64 hexadecimal digits); make one "
+                         "with 'sheetnet new-key'")
     return key
 
 

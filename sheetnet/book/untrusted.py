@@ -25,18 +25,27 @@ import json
 from dataclasses import dataclass, field
 from typing import Any
 
+from sheetnet.book import layout as L
 from sheetnet.book.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
 from sheetnet.book.describe import FORMAT, SIGNATURE_ALGORITHM, VERSION
 from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
 from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.spec import BookInputs, BookSpec
-from sheetnet.book.xlsxread import Workbook
+from sheetnet.book.xlsxread import Workbook, read_workbook
 from sheetnet.errors import DescriptionError, WorkbookFormatError
 
-#: The description's text is refused beyond this many characters (a million-cell workbook's is
-#: about 30 million).
-MAX_DESCRIPTION_CHARS = 128 * 1024**2
+#: The description's text is refused beyond this many characters, and beyond CHARS_PER_CELL for each
+#: cell the other sheets hold, plus SMALL_DESCRIPTION (a description takes under 0.5 a cell when a
+#: record is replayed, about 20 for a hand-written model's parameters with no data).
+MAX_DESCRIPTION_CHARS = 128_000_000
+CHARS_PER_CELL = 64
+SMALL_DESCRIPTION = 1_000_000
+#: The layout sheet holds the description in chunks of 30,000 characters; more cells than this is not
+#: a description (and is not read).
+MAX_LAYOUT_CELLS = MAX_DESCRIPTION_CHARS // 30_000 + 16
+#: Of one kind of problem, at most this many are listed one by one.
+LISTED = 20
 _TOP_KEYS = ("format", "version", "tool", "spec", "sheets", "names", "fingerprints", "inputs")
 #: What verify needs from the description; extract needs the same.
 NEEDED_TO_VERIFY = ("format", "spec")
@@ -74,18 +83,59 @@ class Description:
         return None if self.data is None else self.data.get("signature")
 
 
-def description_text(book: Workbook) -> str:
+def read_returned_workbook(path, allow_macros: bool = False) -> Workbook:
+    """A workbook that came back from others, read with the layout sheet capped (a bloated one is
+    not read at all: ``read_description`` reports it)."""
+    return read_workbook(path, allow_macros=allow_macros, cell_limits={LAYOUT: MAX_LAYOUT_CELLS})
+
+
+#: The first cell of the layout sheet (how a renamed layout sheet is recognised).
+LAYOUT_TITLE = "sheetnet layout description"
+
+
+def layout_sheet_name(book: Workbook) -> str | None:
+    """The layout sheet: under its name, or renamed (recognised by its first cell)."""
+    if LAYOUT in book.sheets:
+        return LAYOUT
+    return next((name for name, sheet in book.sheets.items()
+                 if str(sheet.values.get((0, 0), "")).startswith(LAYOUT_TITLE)), None)
+
+
+def looks_like_sheetnet(book: Workbook) -> bool:
+    """A workbook with sheetnet's sheets or names, whatever happened to its layout sheet."""
+    return {L.PARAMETERS, L.CALCULATOR} <= set(book.sheets) or {"W_1", "b_1"} <= set(book.names)
+
+
+def description_text(book: Workbook, sheet: str = LAYOUT) -> str:
     """The JSON text, joined from the cells of the hidden layout sheet."""
-    if LAYOUT not in book.sheets:
+    if sheet not in book.sheets:
         raise WorkbookFormatError(f"{book.path}: not a sheetnet workbook (no {LAYOUT!r} sheet with its layout)")
-    cells = book.sheets[LAYOUT].values
+    cells = book.sheets[sheet].values
     rows = sorted(row for (row, col), value in cells.items() if col == 0 and row >= 1 and isinstance(value, str))
     return "".join(cells[(row, 0)] for row in rows)
 
 
 def read_description(book: Workbook) -> Description:
-    """The description checked as untrusted input; problems are collected, not raised."""
-    data, problems = _parse(description_text(book))
+    """The description checked as untrusted input; problems are collected, not raised. A workbook with
+    sheetnet's sheets but no layout sheet is a problem too; one with neither is not a sheetnet workbook."""
+    sheet = layout_sheet_name(book)
+    if sheet is None:
+        if not looks_like_sheetnet(book):
+            description_text(book)  # raises: not a sheetnet workbook
+        return Description(None, None, None, [Problem("format", "", f"the hidden layout sheet {LAYOUT!r} was "
+                                                                    "deleted")])
+    layout_sheet = book.sheets[sheet]
+    oversized, too_large = layout_sheet.oversized, layout_sheet.oversized_bytes
+    renamed = [] if sheet == LAYOUT else [Problem("format", "", f"the hidden layout sheet {LAYOUT!r} was renamed "
+                                                                f"to {sheet!r}")]
+    if oversized or too_large or layout_sheet.unreadable:
+        what = f"holds {oversized:,} cells; a description takes at most {MAX_LAYOUT_CELLS:,}" if oversized else \
+            f"is {too_large:,} bytes of XML, more than a description of this workbook's sheets could need" \
+            if too_large else f"cannot be read ({layout_sheet.unreadable})"
+        return Description(None, None, None, [*renamed, Problem("format", "", f"the layout sheet {what}")])
+    text = description_text(book, sheet)
+    data, problems = _parse(text, _size_cap(book))
+    problems = renamed + problems
     if data is None:
         return Description(None, None, None, problems)
     spec, spec_problems = read_spec(data["spec"])
@@ -106,10 +156,20 @@ def read_description(book: Workbook) -> Description:
     return Description(data, layout, original, problems)
 
 
-def _parse(text: str) -> tuple[dict | None, list[Problem]]:
+def _size_cap(book: Workbook) -> int:
+    """The longest description this workbook's other sheets could need."""
+    cells = sum(len(sheet.values) for sheet in book.sheets.values())
+    return min(MAX_DESCRIPTION_CHARS, SMALL_DESCRIPTION + CHARS_PER_CELL * cells)
+
+
+def _parse(text: str, cap: int) -> tuple[dict | None, list[Problem]]:
     check = Checker("format")
-    if len(text) > MAX_DESCRIPTION_CHARS:
-        check.add("", f"the description is {len(text):,} characters long; at most {MAX_DESCRIPTION_CHARS:,}")
+    if not text:
+        check.add("", "the layout sheet holds no description (its cells were cleared or the sheet is unreadable)")
+        return None, check.problems
+    if len(text) > cap:
+        check.add("", f"the description is {len(text):,} characters long; the workbook's sheets hold enough for "
+                      f"at most {cap:,}")
         return None, check.problems
     if nesting_depth(text) > MAX_DEPTH:
         check.add("", f"the description nests deeper than {MAX_DEPTH} levels")
@@ -254,10 +314,13 @@ def _derived_parts(data: dict, layout: BookLayout) -> list[Problem]:
         names.add("names", "expected an object")
     expected = {name: dataclasses.asdict(block) for name, block in layout.defined_names().items()}
     if stored is not None and stored != expected:
-        for name in sorted(set(stored) | set(expected)):
-            if stored.get(name) != expected.get(name):
-                names.add(f"names.{name}", f"stored as {_block_text(stored.get(name))}, but the spec places it at "
-                                           f"{_block_text(expected.get(name))}")
+        differing = [name for name in sorted(set(stored) | set(expected), key=str)
+                     if stored.get(name) != expected.get(name)]
+        for name in differing[:LISTED]:
+            names.add(f"names.{name}", f"stored as {_block_text(stored.get(name))}, but the spec places it at "
+                                       f"{_block_text(expected.get(name))}")
+        if len(differing) > LISTED:
+            names.add("names", f"and {len(differing) - LISTED:,} more names differ from the spec's")
     sheets = Checker("sheets")
     if data["sheets"] != layout.sheet_names():
         sheets.add("sheets", f"the stored sheet list differs from the spec's: {', '.join(layout.sheet_names())}")

@@ -72,6 +72,9 @@ class SheetCells:
     merged: list[str] = field(default_factory=list)  # merged ranges, e.g. "B3:D4"
     hidden_rows: set[int] = field(default_factory=set)  # 0-based
     hidden_cols: set[int] = field(default_factory=set)  # 0-based
+    oversized: int = 0  # cells in the sheet when it held more than its limit (then it was not read)
+    oversized_bytes: int = 0  # the XML's size when it was too large to read at all
+    unreadable: str = ""  # why a capped sheet could not be read (its damage is the caller's finding)
 
 
 @dataclass
@@ -122,9 +125,37 @@ def macro_parts(names: list[str]) -> list[str]:
     return [n for n in names if "vbaproject" in n.lower() or (n.lower().endswith((".bin",)) and "vba" in n.lower())]
 
 
-def _check_package(zf: zipfile.ZipFile, path: Path) -> None:
+#: Parts that must be read before the others are checked (the workbook and its relationships) are
+#: refused beyond this size.
+SMALL_PART_BYTES = 16 * 1024**2
+
+
+def _capped_parts(zf: zipfile.ZipFile, path: Path, capped: dict[str, int]) -> dict[str, int]:
+    """The worksheet parts of the capped sheets, each with the most bytes it may inflate to: twice what
+    the other worksheets inflate to, plus 2 MB (a capped sheet is an auxiliary one, small beside the
+    rest). Larger ones are not read, and are exempt from the zip-bomb refusal, so that the caller can
+    say what is wrong with them."""
+    if not capped:
+        return {}
+    for name in ("xl/workbook.xml", "xl/_rels/workbook.xml.rels"):
+        info = zf.NameToInfo.get(name)
+        if info is not None and info.file_size > SMALL_PART_BYTES:
+            raise WorkbookFormatError(f"{path}: part {name} inflates to {info.file_size:,} bytes; refused")
+    if "xl/workbook.xml" not in zf.NameToInfo or "xl/_rels/workbook.xml.rels" not in zf.NameToInfo:
+        return {}
+    targets = _rels(zf, "xl/_rels/workbook.xml.rels")
+    parts = {targets.get(node.get(f"{{{NS_REL}}}id"), "") for node in _xml(zf, "xl/workbook.xml").iter(
+        f"{{{NS_MAIN}}}sheet") if node.get("name") in capped}
+    others = sum(i.file_size for i in zf.infolist() if i.filename.startswith("xl/worksheets/") and
+                 i.filename not in parts)
+    return {part: 2 * others + 2 * 1024**2 for part in parts if part}
+
+
+def _check_package(zf: zipfile.ZipFile, path: Path, capped: dict[str, int]) -> None:
     total = 0
     for info in zf.infolist():
+        if info.filename in capped:
+            continue
         total += info.file_size
         if info.file_size > MAX_PART_BYTES:
             raise WorkbookFormatError(f"{path}: part {info.filename} inflates to {info.file_size:,} bytes, over the "
@@ -205,7 +236,11 @@ def _value(kind: str, raw: str | None, inline: str | None, strings: list[str]) -
         return None
     raw = _unescape(raw)
     if kind == "s":
-        return strings[int(raw)]
+        index = int(raw)
+        if not 0 <= index < len(strings):
+            raise WorkbookFormatError(f"a cell refers to shared string {index:,}, which the workbook does not have "
+                                      f"({len(strings):,} strings)")
+        return strings[index]
     if kind in ("str", "e") or (kind == "" and raw in _ERRORS):
         return CellError(raw) if kind == "e" or raw in _ERRORS else raw
     if kind == "b":
@@ -330,8 +365,10 @@ def _attribute(attrs: str, name: str) -> str:
     return attrs[at:attrs.index('"', at)]
 
 
-def read_workbook(path: str | Path, sheets: list[str] | None = None, allow_macros: bool = False) -> Workbook:
-    """Read cells of every sheet (or only ``sheets``), defined names and the part list.
+def read_workbook(path: str | Path, sheets: list[str] | None = None, allow_macros: bool = False,
+                  cell_limits: dict[str, int] | None = None) -> Workbook:
+    """Read cells of every sheet (or only ``sheets``), defined names and the part list. A sheet named in
+    ``cell_limits`` that holds more cells than its limit is not read (its ``oversized`` says how many).
 
     Refused with a clear message: non-zip, encrypted or legacy binary (.xls/.xlsb) files, zip bombs,
     XML with a document type declaration, and (unless ``allow_macros``: the audit, which reports
@@ -349,12 +386,13 @@ def read_workbook(path: str | Path, sheets: list[str] | None = None, allow_macro
     except (zipfile.BadZipFile, OSError) as exc:
         raise WorkbookFormatError(f"{path}: not an .xlsx workbook ({exc})") from None
     with zf:
-        _check_package(zf, path)
+        capped = _capped_parts(zf, path, cell_limits or {})
+        _check_package(zf, path, capped)
         if allow_macros is False and macro_parts(zf.namelist()):
             raise WorkbookFormatError(f"{path}: a macro-enabled workbook (VBA project inside); refused: sheetnet "
                                       "never runs macros (use 'sheetnet audit' to see what the file holds)")
         try:
-            return _read(zf, path, sheets)
+            return _read(zf, path, sheets, cell_limits or {}, capped)
         except WorkbookFormatError as exc:
             text = str(exc)
             raise WorkbookFormatError(text if text.startswith(str(path)) else f"{path}: {text}") from None
@@ -376,7 +414,8 @@ def _rels(zf: zipfile.ZipFile, name: str) -> dict[str, str]:
     return out
 
 
-def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None) -> Workbook:
+def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None, limits: dict[str, int],
+          capped: dict[str, int]) -> Workbook:
     names = zf.namelist()
     if "xl/workbook.xml" not in names:
         raise WorkbookFormatError("no xl/workbook.xml: not a spreadsheet workbook")
@@ -395,9 +434,16 @@ def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None) -> Workbook
         if target not in names:
             sheets[name] = SheetCells(name=name, state=node.get("state", "visible"))
             continue
-        data = _text(zf, target)
-        sheets[name] = read_sheet_xml(name, node.get("state", "visible"), data, strings)
-        _sheet_structure(sheets[name], data)
+        size = zf.getinfo(target).file_size
+        if target in capped and size > capped[target]:
+            sheets[name] = SheetCells(name=name, state=node.get("state", "visible"), oversized_bytes=size)
+            continue
+        try:
+            sheets[name] = _read_sheet(zf, target, name, node.get("state", "visible"), strings, limits.get(name))
+        except WorkbookFormatError as exc:
+            if name not in limits:
+                raise
+            sheets[name] = SheetCells(name=name, state=node.get("state", "visible"), unreadable=str(exc))
     global_names, local = {}, []
     for node in book.iter(f"{{{NS_MAIN}}}definedName"):
         if node.get("localSheetId") is not None:
@@ -408,6 +454,17 @@ def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None) -> Workbook
     external = [t.split(":", 1)[1] for t in targets.values() if t.startswith("external:")]
     return Workbook(path=path, sheets=sheets, names=global_names, local_names=local, parts=names,
                     external_targets=external)
+
+
+def _read_sheet(zf: zipfile.ZipFile, target: str, name: str, state: str, strings: list[str],
+                limit: int | None) -> SheetCells:
+    data = _text(zf, target)
+    count = data.count("<c ") + data.count("<c>")
+    if limit is not None and count > limit:
+        return SheetCells(name=name, state=state, oversized=count)
+    sheet = read_sheet_xml(name, state, data, strings)
+    _sheet_structure(sheet, data)
+    return sheet
 
 
 _MERGE = re.compile(r'<(?:\w+:)?mergeCell\b[^>]*?\bref="([^"]+)"')

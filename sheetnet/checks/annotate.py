@@ -9,7 +9,8 @@ from pathlib import Path
 from xml.sax.saxutils import escape
 
 from sheetnet.book.addresses import parse_a1, quote_sheet
-from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
+from sheetnet.book.untrusted import read_returned_workbook
+from sheetnet.book.xlsxread import CellError, Workbook
 from sheetnet.checks.findings import AuditReport
 from sheetnet.files import write_atomic
 
@@ -33,9 +34,8 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
         cell.font = Font(bold=True)
     for column, width in zip("ABCDE", (16, 28, 70, 40, 40), strict=True):
         sheet.column_dimensions[column].width = width
-    for finding in report.findings:
+    for row, finding in enumerate(report.findings, start=2):  # (max_row would rescan the sheet each time)
         target = _target(book, finding)
-        row = sheet.max_row + 1
         where = f"{finding.sheet}!{finding.cell}" if target is not None else (finding.sheet or finding.cell)
         sheet.append([finding.kind, where, finding.note, _text(finding.expected), _text(finding.found)])
         if target is None:
@@ -50,7 +50,7 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
         if finding.found is not None:
             text += f"\nfound: {_text(finding.found)}"
         target.comment = Comment(text[:2000], "sheetnet audit", width=320, height=140)
-    cached = read_workbook(source, allow_macros=True)
+    cached = read_returned_workbook(source, allow_macros=True)
 
     def save(tmp: Path) -> None:
         book.save(tmp)

@@ -8,22 +8,24 @@ difference becomes a :class:`Finding` of one kind (``findings.KINDS``), each str
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 from pathlib import Path
 
 from sheetnet.book import layout as L
 from sheetnet.book import plan
 from sheetnet.book.addresses import parse_a1
+from sheetnet.book.describe import Fingerprints
 from sheetnet.book.jsoncheck import Problem, json_differences
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_inputs_checked, read_layout
 from sheetnet.book.signing import check_signature
 from sheetnet.book.spec import BookInputs
-from sheetnet.book.untrusted import Description, read_description
-from sheetnet.book.xlsxread import Workbook, read_workbook
+from sheetnet.book.untrusted import Description, read_description, read_returned_workbook
+from sheetnet.book.xlsxread import Workbook
 from sheetnet.checks.align import Alignment, align
-from sheetnet.checks.audit_cells import check_formulas, check_inputs, check_risks, check_structure
+from sheetnet.checks.audit_cells import check_formulas, check_guide, check_inputs, check_risks, check_structure
 from sheetnet.checks.findings import KINDS, AuditReport, Finding
 from sheetnet.checks.verify import by_cell, compare, engine_values, expected_formulas
 from sheetnet.errors import SheetNetError, WorkbookFormatError
@@ -64,7 +66,7 @@ def _reference(report: AuditReport, own: Description | None, against: Path | Non
         if own.layout is None:
             return None
         return Reference(own.layout, own.original, None)
-    reference = read_workbook(against)
+    reference = read_returned_workbook(against)
     layout, trusted = read_layout(reference)
     edited = None if own is None else own.data
     _description_findings(report, [Problem("format", path, f"differs from the original's description: {what}")
@@ -105,7 +107,7 @@ def audit(path: str | Path, against: str | Path | None = None, key: bytes | None
 
 
 def _audit(path: Path, against: Path | None, key: bytes | None, engine_name: str) -> AuditReport:
-    book = read_workbook(path, allow_macros=True)
+    book = read_returned_workbook(path, allow_macros=True)
     report = AuditReport(path=path, reference=str(against) if against else "layout description stored in the file")
     own = _own_description(book, against)
     signed = _signature_findings(report, book, own, key)
@@ -118,8 +120,12 @@ def _audit(path: Path, against: Path | None, key: bytes | None, engine_name: str
     if against is None and not signed:
         report.notes.append(SELF_ASSERTED)
     layout = reference.layout
-    original = reference.original if reference.original is not None else read_inputs_checked(book, layout)[0]
-    entries = list(plan.all_entries(layout, compute(layout.spec, original)))
+    entries = _entries(report, book, layout, reference.original)
+    if entries is None:
+        check_risks(report, book)
+        return report
+    if against is None and reference.original is not None:
+        _check_fingerprints(report, own, entries)
     if engine_name == "formulas":
         from sheetnet.engines.formulaspkg import check_size
 
@@ -136,10 +142,40 @@ def _audit(path: Path, against: Path | None, key: bytes | None, engine_name: str
             report.notes.append("input edits were not listed: the original inputs stored in the description "
                                 "cannot be trusted")
         check_formulas(report, book, entries, alignment, reference.formulas)
+        check_guide(report, book, layout, alignment)
         _check_values(report, book, layout, alignment, engine, engine_name)
     finally:
         engine.stop()
     return report
+
+
+def _entries(report: AuditReport, book: Workbook, layout: BookLayout, original: BookInputs | None) -> list | None:
+    """Every cell build wrote, from the original inputs (or, when those cannot be replayed, the file's);
+    None, with a note, when neither can."""
+    tried = [("the stored original inputs", original)] if original is not None else []
+    tried.append(("the inputs the file holds", read_inputs_checked(book, layout)[0]))
+    for what, inputs in tried:
+        try:
+            return list(plan.all_entries(layout, compute(layout.spec, inputs)))
+        except SheetNetError as exc:
+            report.add(Finding("", "inputs", "description" if inputs is original else "input_edits", None, None,
+                               f"the reference trainer cannot replay {what} ({exc})"))
+    report.notes.append("the cells were not compared: the reference trainer cannot replay the inputs")
+    return None
+
+
+def _check_fingerprints(report: AuditReport, own: Description, entries: list) -> None:
+    """The stored fingerprints are hashes of what build wrote from the stored spec and inputs: one that
+    disagrees with them was altered (the sheets themselves are compared cell by cell)."""
+    prints = Fingerprints()
+    for sheet, group in itertools.groupby(entries, key=lambda item: item[0]):
+        prints.add_all(sheet, [entry for _, entry in group])
+    stored = own.data.get("fingerprints", {})
+    for kind, digests in prints.to_dict().items():
+        for sheet in sorted(set(digests) | set(stored.get(kind, {}))):
+            if digests.get(sheet) != stored.get(kind, {}).get(sheet):
+                report.add(Finding("", f"fingerprints.{kind}.{sheet}", "description", None, None,
+                                   "does not match what the description's spec and inputs give"))
 
 
 def _check_values(report: AuditReport, book: Workbook, layout: BookLayout, alignment: Alignment,

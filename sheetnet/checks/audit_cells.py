@@ -12,6 +12,7 @@ from collections import Counter
 from sheetnet.book import layout as L
 from sheetnet.book.addresses import Cell, a1, parse_a1
 from sheetnet.book.canonical import normalize_formula, same_value, target_text
+from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import InvalidInput, input_cells
 from sheetnet.book.spec import BookInputs
@@ -213,6 +214,21 @@ def _check_label(report: AuditReport, cells: SheetCells, where: Cell, text) -> N
     elif not same_value(cells.values.get(here), float(text) if isinstance(text, int) else text):
         report.add(Finding(where.sheet, a1(*here), "structural", text, plain(cells.values.get(here)),
                            "a label or header was changed"))
+
+
+def check_guide(report: AuditReport, book: Workbook, layout: BookLayout, alignment: Alignment) -> None:
+    """The Guide states what the description says (network, sheets, names, provenance, scaling): a
+    difference means the Guide or the description was edited. One finding, with the first cell."""
+    m = alignment.sheets.get(L.GUIDE)
+    if m is None:
+        return
+    values = book.sheets[m.found].values
+    differing = [a1(row, col) for row, (_, left, right) in enumerate(guide_lines(layout, layout.defined_names()))
+                 for col, text in ((0, left), (1, right)) if not same_value(values.get((row, col)), text or None)]
+    if differing:
+        report.add(Finding(m.found, differing[0], "structural", None, None,
+                           f"the Guide's text differs from what the layout description gives in {len(differing)} "
+                           "cell(s): the Guide or the description was edited"))
 
 
 def _check_added(report: AuditReport, book: Workbook, alignment: Alignment, covered: dict[str, set]) -> None:

@@ -20,7 +20,8 @@ from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
-from sheetnet.book.xlsxread import Workbook, read_workbook
+from sheetnet.book.untrusted import read_returned_workbook
+from sheetnet.book.xlsxread import Workbook
 from sheetnet.checks.align import Alignment, alignment_for
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
@@ -30,7 +31,7 @@ from sheetnet.net.model import Layer, Model
 def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]:
     """The workbook's model: from the Parameters sheet, or after the training record's last step."""
     with paused_gc():
-        book = read_workbook(path)
+        book = read_returned_workbook(path)
         layout, description = read_layout(book)
         alignment = alignment_for(book, layout, description.original)
         needed = ("parameters", "scaling", "training", "data") if after_training else ("parameters", "scaling")

@@ -21,7 +21,7 @@ from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
-from sheetnet.book.untrusted import read_description
+from sheetnet.book.untrusted import read_description, read_returned_workbook
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
 from sheetnet.checks.align import Alignment, alignment_for
 from sheetnet.checks.findings import LIST_LIMIT, plain
@@ -335,7 +335,7 @@ VERIFY_STAGES = 4
 def signature_of(path: str | Path, key: bytes) -> SignatureCheck:
     """Whether a workbook's signature holds, without verifying its cells (for a workbook whose
     description cannot be trusted: the signature then says whether it was altered after signing)."""
-    book = read_workbook(path)
+    book = read_returned_workbook(path)
     try:
         data = read_description(book).data
     except WorkbookFormatError:
@@ -357,7 +357,7 @@ def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAUL
 
 def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | None) -> VerifyReport:
     progress(0)
-    book = read_workbook(path)
+    book = read_returned_workbook(path)
     progress(1)
     layout, description = read_layout(book)
     names = ENGINE_SETS.get(engine, (engine,))
