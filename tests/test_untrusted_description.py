@@ -332,3 +332,25 @@ def test_a_description_longer_than_the_workbook_could_need_is_refused(book, tmp_
 
     report = audit(alter_description(book, tmp_path / "a.xlsx", padded))
     assert report.total == 1 and "the workbook's sheets hold enough for at most" in report.of("description")[0].note
+
+
+@pytest.mark.slow
+@pytest.mark.libreoffice_bridge
+def test_signature_survives_saving_elsewhere_and_breaks_on_an_edit(signed, tmp_path, run_cli):
+    """Saved again untouched by LibreOffice (15 digits, its own rounding) or openpyxl (16 digits), a
+    signed workbook still verifies; a weight typed in LibreOffice breaks the signature, naming the sheet."""
+    import openpyxl
+
+    from tests.lo_edit import edit_in_libreoffice
+
+    resaved = edit_in_libreoffice(signed["book"], tmp_path / "lo.xlsx", [])
+    code, out, _ = run_cli("verify", resaved, "--key", signed["key"])
+    assert code == 0 and "signature: VALID" in out, out
+    book = openpyxl.load_workbook(signed["book"])
+    book.save(tmp_path / "op.xlsx")
+    code, out, _ = run_cli("verify", tmp_path / "op.xlsx", "--key", signed["key"])
+    assert code == 0 and "signature: VALID" in out, out
+    edited = edit_in_libreoffice(signed["book"], tmp_path / "edited.xlsx",
+                                 [{"op": "value", "sheet": "Parameters", "cell": "B12", "value": 0.375}])
+    code, out, _ = run_cli("verify", edited, "--key", signed["key"])
+    assert code == 1 and "signature: BROKEN" in out and "on sheet(s) Parameters" in out, out
