@@ -33,7 +33,8 @@ def _table(rows: int):
 
 
 def child(target: int) -> dict:
-    from sheetnet.book.build import RecordOptions, from_fit, write_workbook
+    from sheetnet.book.build import from_fit, write_workbook
+    from sheetnet.book.sizing import Requested
     from sheetnet.net.fit import Architecture, fit
     from sheetnet.net.train import TrainSettings
 
@@ -43,7 +44,8 @@ def child(target: int) -> dict:
     epochs = max(1, round(target / (rows * per_row)))
     settings = TrainSettings(learning_rate=0.1, epochs=epochs, batch_size=1, seed=0)
     outcome = fit(table, ("label",), settings, Architecture(hidden=(3,)), holdout=0.0)
-    spec, inputs = from_fit(outcome, table, settings, RecordOptions())
+    plan = from_fit(outcome, table, settings, Requested(), max_cells=10**8)
+    spec, inputs = plan.spec, plan.inputs
     repeats = 3 if target < 500_000 else 1
     builds, bases = [], []
     with tempfile.TemporaryDirectory() as tmp:

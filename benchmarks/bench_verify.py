@@ -30,14 +30,16 @@ def build(path: Path, cells: int) -> int:
     sys.path.insert(0, str(Path(__file__).parent))
     from bench_build import _table
 
-    from sheetnet.book.build import RecordOptions, from_fit, write_workbook
+    from sheetnet.book.build import from_fit, write_workbook
+    from sheetnet.book.sizing import Requested
     from sheetnet.net.fit import Architecture, fit
     from sheetnet.net.train import TrainSettings
 
     table = _table(ROWS)
     settings = TrainSettings(learning_rate=0.1, epochs=max(1, round(cells / (ROWS * PER_ROW))), batch_size=1, seed=0)
     outcome = fit(table, ("label",), settings, Architecture(hidden=(3,)), holdout=0.0)
-    spec, inputs = from_fit(outcome, table, settings, RecordOptions())
+    plan = from_fit(outcome, table, settings, Requested(), max_cells=10**8)
+    spec, inputs = plan.spec, plan.inputs
     return write_workbook(spec, inputs, path, max_cells=10**8).formula_cells
 
 

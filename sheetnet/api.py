@@ -19,12 +19,13 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.book.build import DEFAULT_MAX_CELLS, from_fit, from_model, write_workbook
+from sheetnet.book.sizing import Requested
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
 from sheetnet.net.fit import Architecture, FitOutcome, fit
 from sheetnet.net.model import Model, load_model
-from sheetnet.net.train import TrainSettings
+from sheetnet.net.train import TrainSettings, stored_settings
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -77,20 +78,25 @@ def score(model: Model | str | Path, data, threshold: float = 0.5, keep_other_co
 
 
 def build_workbook(path, data=None, target=None, model: Model | str | Path | None = None, trace_epochs=None,
-                   trace_rows=None, max_cells: int = DEFAULT_MAX_CELLS, force: bool = False, **train_options) -> Path:
+                   trace_rows=None, scoring_rows=None, max_cells: int = DEFAULT_MAX_CELLS, force: bool = False,
+                   **train_options) -> Path:
     """Write the workbook like ``sheetnet build``: train on ``data`` (``train_options`` as for :func:`train`), or
-    write it for ``model`` (with ``data``: scoring, and a record starting from the model's weights)."""
-    options = RecordOptions(epochs=trace_epochs, rows=trace_rows)
-    run = settings(**{k: v for k, v in train_options.items() if k in SETTINGS})
+    write it for ``model`` (with ``data``: scoring, and a record continuing from the model's weights with its
+    stored settings, or those given). Without size arguments the workbook fits ``max_cells``."""
+    requested = Requested(epochs=trace_epochs, rows=trace_rows, scoring_rows=scoring_rows)
     table = None if data is None else as_table(data)
     if model is None:
-        spec, inputs = from_fit(train(data, target, **train_options), table, run, options)
+        run = settings(**{k: v for k, v in train_options.items() if k in SETTINGS})
+        plan = from_fit(train(data, target, **train_options), table, run, requested, max_cells)
     else:
         model = load_model(model) if isinstance(model, str | Path) else model
         if target is not None:
             model = replace(model, target=_columns(target))
-        spec, inputs, _ = from_model(model, table, run if table is not None else None, options)
-    return write_workbook(spec, inputs, Path(path), force=force, max_cells=max_cells).path
+        base = stored_settings(model) or TrainSettings()
+        run = replace(base, **{k: v if k != "batch_size" or v != "full" else None
+                               for k, v in train_options.items() if k in SETTINGS})
+        plan = from_model(model, table, run if table is not None else None, requested, max_cells)
+    return write_workbook(plan.spec, plan.inputs, Path(path), force=force, max_cells=max_cells).path
 
 
 def verify_workbook(path, engine: str = "embedded", tolerance: float = 1e-9):

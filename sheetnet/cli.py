@@ -17,8 +17,9 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet.book.build import DEFAULT_MAX_CELLS, RecordOptions, from_fit, from_model, write_workbook
+from sheetnet.book.build import DEFAULT_MAX_CELLS, from_fit, from_model, write_workbook
 from sheetnet.book.signing import key_id, key_readable_by_others, new_key_text, read_key
+from sheetnet.book.sizing import Requested
 from sheetnet.checks.annotate import annotate
 from sheetnet.checks.audit import audit
 from sheetnet.checks.extract import extract
@@ -40,7 +41,7 @@ from sheetnet.net.fit import Architecture, FitOutcome, fit
 from sheetnet.net.metrics import Metrics, evaluate
 from sheetnet.net.model import load_model
 from sheetnet.net.score import score_table
-from sheetnet.net.train import TrainSettings
+from sheetnet.net.train import TrainSettings, stored_settings
 from sheetnet.progress import Progress
 from sheetnet.report import audit_lines, verify_lines
 from sheetnet.version import __version__
@@ -102,8 +103,20 @@ def _count(text: str) -> int:
     return value
 
 
-def _batch(text: str) -> int | None:
-    return None if text.strip().lower() == "full" else _count(text)
+def _count_or_zero(text: str) -> int:
+    return 0 if text.strip() == "0" else _count(text)
+
+
+class _Batch(argparse.Action):
+    """--batch-size N or 'full' (recorded apart: None also means 'not given')."""
+
+    def __call__(self, parser, namespace, value, option_string=None) -> None:
+        full = value.strip().lower() == "full"
+        namespace.batch_full = full
+        try:
+            setattr(namespace, self.dest, None if full else _count(value))
+        except argparse.ArgumentTypeError as exc:
+            raise argparse.ArgumentError(self, str(exc)) from None
 
 
 def _rates(text: str) -> list[float]:
@@ -145,15 +158,21 @@ def add_train_flags(p: argparse.ArgumentParser, data_optional: bool = False) -> 
     p.add_argument("--output", choices=("auto", "sigmoid", "softmax", "identity"), default="auto")
     p.add_argument("--loss", choices=("auto", "squared", "cross-entropy"), default="auto")
     p.add_argument("--task", choices=("auto", "binary", "multiclass", "multilabel", "regression"), default="auto")
-    p.add_argument("--lr", type=_positive, default=0.1, help="learning rate")
-    p.add_argument("--epochs", type=_count, default=100)
-    p.add_argument("--batch-size", type=_batch, default=1, help="rows per update: 1, N or 'full'")
-    p.add_argument("--shuffle", action=argparse.BooleanOptionalAction, default=True,
-                   help="shuffle the training rows every epoch (seeded)")
-    p.add_argument("--seed", type=int, default=0)
-    p.add_argument("--momentum", type=_finite, default=0.0)
-    p.add_argument("--l2", type=_finite, default=0.0, help="L2 penalty on weights (not biases)")
-    p.add_argument("--scale", choices=("standard", "minmax", "none"), default="standard")
+    # Training settings default to None so that build --model can tell a flag given from one left out
+    # (then the model's stored settings apply); their defaults are TrainSettings' and said here.
+    defaults = TrainSettings()
+    given = " (build --model: the model's stored setting)" if data_optional else ""
+    p.add_argument("--lr", type=_positive, help=f"learning rate (default {defaults.learning_rate}{given})")
+    p.add_argument("--epochs", type=_count, help=f"epochs (default {defaults.epochs}{given})")
+    p.add_argument("--batch-size", action=_Batch, help=f"rows per update: 1, N or 'full' (default {defaults.batch_size}"
+                                                     f"{given})")
+    p.add_argument("--shuffle", action=argparse.BooleanOptionalAction, default=None,
+                   help=f"shuffle the training rows every epoch, seeded (default on{given})")
+    p.add_argument("--seed", type=int, help=f"seed of initialisation, shuffling and holdout (default 0{given})")
+    p.add_argument("--momentum", type=_finite, help=f"momentum in [0, 1) (default 0{given})")
+    p.add_argument("--l2", type=_finite, help=f"L2 penalty on weights, not biases (default 0{given})")
+    p.add_argument("--scale", choices=("standard", "minmax", "none"), default="standard",
+                   help="input scaling fitted on the training rows")
     p.add_argument("--holdout", type=_holdout, default="auto",
                    help="fraction of rows held out (default auto: 0.2 from 50 rows on, else 0)")
     p.add_argument("--init", type=Path, help="start from this model file (architecture, activations, scaling)")
@@ -171,10 +190,13 @@ def _parser() -> argparse.ArgumentParser:
     build_p = commands.add_parser("build", help="write the network as a workbook of live formulas")
     add_train_flags(build_p, data_optional=True)
     build_p.add_argument("--model", type=Path, help="write the workbook for this model file instead of training")
-    build_p.add_argument("--trace-epochs", type=_count, help="epochs replayed in the training record (default all)")
-    build_p.add_argument("--trace-rows", type=_count, help="training rows replayed in the record (default all)")
-    build_p.add_argument("--max-cells", type=_count, default=DEFAULT_MAX_CELLS,
-                         help=f"cap on formula cells (default {DEFAULT_MAX_CELLS:,})")
+    build_p.add_argument("--trace-epochs", type=_count_or_zero,
+                         help="epochs the training record replays, 0 for no record (default: as many as fit)")
+    build_p.add_argument("--trace-rows", type=_count,
+                         help="training rows the record replays (default: all, or as many as fit)")
+    build_p.add_argument("--scoring-rows", type=_count,
+                         help="cases the Scoring sheet holds (default: all, or a sample that fits)")
+    build_p.add_argument("--max-cells", type=_count, default=DEFAULT_MAX_CELLS, help="cap on formula cells")
     build_p.add_argument("--sign-key", type=Path, metavar="KEYFILE",
                          help="sign the workbook with this secret key (HMAC-SHA256; make one with 'sheetnet new-key')")
     build_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="workbook to write")
@@ -232,9 +254,20 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
-def settings_from(args: argparse.Namespace) -> TrainSettings:
-    settings = TrainSettings(learning_rate=args.lr, epochs=args.epochs, batch_size=args.batch_size,
-                             shuffle=args.shuffle, seed=args.seed, momentum=args.momentum, l2=args.l2)
+#: Training flag -> TrainSettings field.
+SETTING_FLAGS = {"lr": "learning_rate", "epochs": "epochs", "batch_size": "batch_size", "shuffle": "shuffle",
+                 "seed": "seed", "momentum": "momentum", "l2": "l2"}
+
+
+def settings_from(args: argparse.Namespace, base: TrainSettings | None = None) -> TrainSettings:
+    """The flags given, over ``base`` (the defaults, or a model's stored settings). A batch size of
+    'full' arrives as None like a flag left out, so it is told apart by the text given."""
+    base = base or TrainSettings()
+    values = {field: getattr(args, flag) for flag, field in SETTING_FLAGS.items()}
+    given = {field: value for field, value in values.items() if value is not None}
+    if getattr(args, "batch_full", False):
+        given["batch_size"] = None
+    settings = replace(base, **given)
     settings.validate()
     return settings
 
@@ -322,27 +355,28 @@ def cmd_score(args: argparse.Namespace) -> int:
 def cmd_build(args: argparse.Namespace) -> int:
     check_output(args.out, args.force, inputs=[p for p in (args.data, args.model, args.init) if p], kind="workbook")
     key = _key(args.sign_key)  # before any training: a bad key file fails at once
-    options = RecordOptions(epochs=args.trace_epochs, rows=args.trace_rows)
+    requested = Requested(epochs=args.trace_epochs, rows=args.trace_rows, scoring_rows=args.scoring_rows)
     if args.model:
-        spec, inputs, notes = _model_book(args, options)
+        plan = _model_plan(args, requested)
     else:
         if args.data is None:
             raise UsageError("build needs a data file, or --model MODEL.json")
         outcome, table, settings = run_fit(args)
         print("\n".join(summary_lines(outcome)))
-        spec, inputs = from_fit(outcome, table, settings, options)
-        notes = []
+        plan = from_fit(outcome, table, settings, requested, args.max_cells)
+    notes = list(plan.notes)
+    write = lambda spec: write_workbook(spec, plan.inputs, args.out, force=args.force,  # noqa: E731
+                                        max_cells=args.max_cells, progress=Progress(1, "writing", quiet=args.quiet),
+                                        sign_key=key)
     try:
-        result = write_workbook(spec, inputs, args.out, force=args.force, max_cells=args.max_cells,
-                                progress=Progress(1, "writing", quiet=args.quiet), sign_key=key)
+        result = write(plan.spec)
     except TrainingError as exc:
-        if not args.model or spec.record is None:
+        if not args.model or plan.spec.record is None:
             raise
-        # a given model's scores still belong in a workbook when replaying training from it diverges
-        notes.append(f"no training record: {exc} (from the model's weights at learning rate {args.lr:g})")
-        result = write_workbook(replace(spec, record=None), inputs, args.out, force=args.force,
-                                max_cells=args.max_cells, progress=Progress(1, "writing", quiet=args.quiet),
-                                sign_key=key)
+        # a given model's scores still belong in a workbook when continuing training from it diverges
+        notes.append(f"no training record: {exc} (from the model's weights at learning rate "
+                     f"{plan.inputs.learning_rate:g})")
+        result = write(replace(plan.spec, record=None))
     if key is not None:
         notes.append(f"signed with key id {key_id(key)}")
     for note in notes:
@@ -372,13 +406,23 @@ def cmd_new_key(args: argparse.Namespace) -> int:
     return 0
 
 
-def _model_book(args: argparse.Namespace, options: RecordOptions):
+def _model_plan(args: argparse.Namespace, requested: Requested):
+    """A given model's workbook; its record continues training with the model's stored settings where a
+    flag does not say otherwise (documented defaults for a model file that stores none)."""
     model = load_model(args.model)
     table = dataio.read_csv(args.data) if args.data else None
     if args.target:
         model = replace(model, target=args.target)
-    settings = settings_from(args) if table is not None else None
-    return from_model(model, table, settings, options)
+    stored = stored_settings(model)
+    settings = settings_from(args, stored) if table is not None else None
+    plan = from_model(model, table, settings, requested, args.max_cells)
+    if plan.spec.record is not None:
+        source = "the model's stored settings" if stored is not None else "the defaults (the model file stores no " \
+            "training settings)"
+        given = [f"--{flag.replace('_', '-')}" for flag in SETTING_FLAGS if getattr(args, flag) is not None]
+        plan = replace(plan, notes=(*plan.notes, f"the training record continues from the model's weights with "
+                                                 f"{source}" + (f", except {', '.join(given)}" if given else "")))
+    return plan
 
 
 def cmd_demo(args: argparse.Namespace) -> int:

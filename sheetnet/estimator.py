@@ -80,26 +80,17 @@ class _SheetNet(BaseEstimator):
     def to_workbook(self, path, x=None, y=None, trace_epochs: int | None = None, force: bool = False) -> Path:
         """Write the fitted network's workbook; with ``x`` and ``y``, batch scoring of those rows (default: the
         training rows) and a training record replaying the fit from its initial weights."""
-        from sheetnet.book.build import (
-            RecordOptions,
-            make_inputs,
-            make_spec,
-            provenance,
-            record_schedule,
-            write_workbook,
-        )
+        from sheetnet.book.build import DEFAULT_MAX_CELLS, plan_workbook, write_workbook
+        from sheetnet.book.sizing import Requested
 
         check_is_fitted(self, "model_")
         x = self._x_fit if x is None else np.asarray(validate_data(self, x, reset=False), dtype=float)
         labels = self._labels(self._t_fit) if y is None else [str(v) for v in np.asarray(y).ravel()]
         model = self.model_
         table = _table(model, x, labels)
-        settings = self._settings()
-        options = RecordOptions(epochs=trace_epochs)
-        record = record_schedule(np.arange(len(x)), settings, options)
-        spec = make_spec(model, table, ("training",) * len(x), record, provenance(model, table, settings, options, []))
-        inputs = make_inputs(model, table, spec.target_kind, settings, self.initial_model_.layers)
-        return write_workbook(spec, inputs, Path(path), force=force).path
+        plan = plan_workbook(model, table, self._settings(), np.arange(len(x)), self.initial_model_.layers,
+                             Requested(epochs=trace_epochs), DEFAULT_MAX_CELLS, [], ["training"] * len(x), [])
+        return write_workbook(plan.spec, plan.inputs, Path(path), force=force).path
 
 
 def _table(model: Model, x: np.ndarray, labels: list[str]) -> Table:

@@ -7,7 +7,8 @@ import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from sheetnet.book.build import RecordOptions, from_model, write_workbook
+from sheetnet.book.build import from_model, write_workbook
+from sheetnet.book.sizing import Requested
 from sheetnet.book.xlsxread import read_workbook
 from sheetnet.checks.verify import verify
 from sheetnet.net.activations import Activation
@@ -68,7 +69,8 @@ def test_any_finite_network_gives_a_workbook_that_verifies(tmp_path_factory, mod
     else:
         labels = [data.draw(finite) for _ in rows]
     settings_ = TrainSettings(learning_rate=1e-6, epochs=1, batch_size=2, shuffle=False)
-    spec, inputs, _ = from_model(model, _table(model, rows, labels), settings_, RecordOptions())
+    plan = from_model(model, _table(model, rows, labels), settings_, Requested(), max_cells=10**8)
+    spec, inputs = plan.spec, plan.inputs
     path = tmp_path_factory.mktemp("b") / "b.xlsx"
     write_workbook(spec, inputs, path)
     formulas = [f for cells in read_workbook(path).sheets.values() for f in cells.formulas.values()]

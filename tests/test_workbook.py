@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import time
 import zipfile
 from pathlib import Path
@@ -155,14 +156,32 @@ def test_formula_limits_hold(tmp_path, run_cli):
         assert deepest <= 64
 
 
-def test_cell_cap_refuses_and_writes_nothing(tmp_path, run_cli):
+def test_default_build_fits_the_cap_and_says_what_it_left_out(tmp_path, run_cli):
     header, rows = DATASETS["binary"]
     data = write_csv(tmp_path / "d.csv", header, rows)
-    code, _, err = run_cli("build", data, "--target", "label", "--epochs", "50", "--max-cells", "500",
-                           "-o", tmp_path / "b.xlsx")
-    assert code == 1 and "--trace-epochs" in err and "--max-cells" in err
+    code, out, err = run_cli("build", data, "--target", "label", "--epochs", "50", "--max-cells", "1500",
+                             "-o", tmp_path / "b.xlsx")
+    assert code == 0, err
+    cells = int(re.search(r"([\d,]+) formula cells", out).group(1).replace(",", ""))
+    assert cells <= 1500
+    assert "note: the training record replays epochs 1-" in out and "of 50" in out
+    assert run_cli("verify", tmp_path / "b.xlsx")[0] == 0
+
+
+def test_explicit_sizes_over_the_cap_are_refused_with_flags_that_fit(tmp_path, run_cli):
+    header, rows = DATASETS["binary"]
+    data = write_csv(tmp_path / "d.csv", header, rows)
+    code, _, err = run_cli("build", data, "--target", "label", "--epochs", "50", "--trace-epochs", "50",
+                           "--max-cells", "1500", "-o", tmp_path / "b.xlsx")
+    assert code == 1 and "--max-cells" in err
+    suggested = re.search(r"try (--scoring-rows [\d,]+), (--trace-epochs [\d,]+(?: --trace-rows [\d,]+)?)", err)
+    assert suggested, err
     assert not (tmp_path / "b.xlsx").exists()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["d.csv"]
+    flags = [part.replace(",", "") for group in suggested.groups() for part in group.split()]
+    code, _, err = run_cli("build", data, "--target", "label", "--epochs", "50", *flags, "--max-cells", "1500",
+                           "-o", tmp_path / "b.xlsx")
+    assert code == 0, err  # the advice works
 
 
 def test_layout_description_is_stored(tmp_path, run_cli):

@@ -13,13 +13,15 @@ from sheetnet.book.describe import describe, description_text
 from sheetnet.book.layout import BookLayout, build_layout
 from sheetnet.book.numbers import compute
 from sheetnet.book.signing import CellDigests, sign
+from sheetnet.book.sizing import Costs, Extent, Requested, choose, describe_extent, scoring_sample
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.book.write import write_book
-from sheetnet.errors import UsageError, WorkbookFormatError
+from sheetnet.errors import WorkbookFormatError
 from sheetnet.files import write_atomic
 from sheetnet.gcpause import paused_gc
 from sheetnet.net import data as dataio
 from sheetnet.net.fit import FitOutcome, fingerprint
+from sheetnet.net.metrics import Metrics, evaluate
 from sheetnet.net.model import Layer, Model
 from sheetnet.net.train import TrainSettings, epoch_batches
 from sheetnet.version import __version__
@@ -27,15 +29,6 @@ from sheetnet.version import __version__
 #: Default cap on formula cells; ``--max-cells`` raises it (spreadsheet applications slow down
 #: well before their hard limits).
 DEFAULT_MAX_CELLS = 500_000
-
-
-@dataclass(frozen=True)
-class RecordOptions:
-    """Which part of a training run the record replays: the first ``epochs`` epochs on the first
-    ``rows`` training rows (None: all)."""
-
-    epochs: int | None = None
-    rows: int | None = None
 
 
 @dataclass(frozen=True)
@@ -68,11 +61,10 @@ def _case_rows(model: Model, table: dataio.Table, kind: str) -> tuple[tuple[floa
                  for n in range(len(table.rows)))
 
 
-def record_schedule(train_rows: np.ndarray, settings: TrainSettings, options: RecordOptions
-                    ) -> RecordSpec:
-    """The steps of the record: the trainer's own batches for the chosen epochs and rows."""
-    rows = train_rows if options.rows is None else train_rows[: options.rows]
-    epochs = settings.epochs if options.epochs is None else options.epochs
+def record_schedule(train_rows: np.ndarray, settings: TrainSettings, epochs: int, rows: int) -> RecordSpec:
+    """The steps of the record: the trainer's own batches for the first ``epochs`` on the first ``rows``
+    training rows (on all of them, exactly the trainer's run)."""
+    rows = train_rows[:rows]
     steps, epoch_of = [], []
     for e, batches in enumerate(epoch_batches(len(rows), settings, epochs), start=1):
         for batch in batches:
@@ -80,12 +72,6 @@ def record_schedule(train_rows: np.ndarray, settings: TrainSettings, options: Re
             epoch_of.append(e)
     return RecordSpec(steps=tuple(steps), epochs=tuple(epoch_of), momentum=settings.momentum > 0,
                       l2=settings.l2 > 0)
-
-
-def _check_options(options: RecordOptions) -> None:
-    for name, value in (("--trace-epochs", options.epochs), ("--trace-rows", options.rows)):
-        if value is not None and value < 1:
-            raise UsageError(f"{name} must be >= 1, got {value}")
 
 
 def make_spec(model: Model, table: dataio.Table | None, sets: tuple[str, ...], record: RecordSpec | None,
@@ -117,29 +103,41 @@ def make_inputs(model: Model, table: dataio.Table | None, kind: str, settings: T
                       momentum=settings.momentum, l2=settings.l2, initial=initial)
 
 
-def provenance(model: Model, table: dataio.Table | None, settings: TrainSettings | None,
-               options: RecordOptions, extra: list[tuple[str, str]]) -> list[tuple[str, str]]:
+def provenance(model: Model, table: dataio.Table | None, settings: TrainSettings | None, extent: Extent | None,
+               metrics: list[tuple[str, Metrics]], extra: list[tuple[str, str]]) -> list[tuple[str, str]]:
     lines = [("tool", f"sheetnet {__version__}")]
     if table is not None:
         lines += [("data file", Path(table.source).name), ("data SHA-256", fingerprint(table)),
                   ("data rows", str(len(table.rows)))]
         lines += [("data note", note) for note in table.notes]
-    if settings is not None:
+    if settings is not None and extent is not None and extent.epochs:
         lines += [("training settings", ", ".join(f"{k}={v}" for k, v in settings.to_dict().items()))]
-        lines += [("record", f"epochs {options.epochs or settings.epochs}, rows "
-                             f"{options.rows if options.rows is not None else 'all training rows'}")]
+        lines += [("record", f"epochs 1-{extent.epochs} of {settings.epochs}, on {extent.rows:,} training rows")]
+    if extent is not None and extent.scoring is not None:
+        lines.append(("scoring", f"{extent.scoring:,} of {len(table.rows):,} cases (the record's and evenly spaced "
+                                 "others)"))
+    lines += [(f"metrics over all data ({what})", metrics_text(m)) for what, m in metrics]
     trained = model.training.get("final_loss")
     if trained is not None:
         lines.append(("trained model", f"final training loss {trained!r}"))
     return lines + extra
 
 
+def metrics_text(metrics: Metrics) -> str:
+    if metrics.accuracy is not None:
+        return f"accuracy {metrics.accuracy:.4f} over {metrics.rows:,} rows"
+    return "; ".join(f"{name}: RMSE {r:.6g}, MAE {m:.6g}" for name, r, m in
+                     zip(metrics.labels, metrics.rmse, metrics.mae, strict=True)) + f" over {metrics.rows:,} rows"
+
+
 def check_size(layout: BookLayout, max_cells: int) -> int:
     """Estimated formula cells; refuse what a spreadsheet application would truncate or choke on."""
     spec = layout.spec
     scoring = sum(c.role == "formula" for c in layout.scoring.columns) * spec.n_cases
-    record = 0 if layout.record is None else sum(c.role == "formula" for c in layout.record.columns) * \
-        layout.record.nrows
+    record = 0
+    if layout.record is not None:
+        per_row, per_step = record_columns(layout)
+        record = per_row * layout.record.nrows + per_step * len(layout.step_rows)
     for table in (layout.scoring, layout.record):
         if table is None:
             continue
@@ -153,7 +151,7 @@ def check_size(layout: BookLayout, max_cells: int) -> int:
         raise WorkbookFormatError(
             f"the workbook would hold about {estimate:,} formula cells ({record:,} in the training record), "
             f"more than the cap of {max_cells:,}: record fewer epochs or rows with --trace-epochs / --trace-rows, "
-            "or raise the cap with --max-cells")
+            "hold fewer cases with --scoring-rows, or raise the cap with --max-cells")
     return estimate
 
 
@@ -186,39 +184,114 @@ def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool =
     return BuildResult(path=Path(path), formula_cells=counted[0], layout=layout)
 
 
-def from_fit(outcome: FitOutcome, table: dataio.Table, settings: TrainSettings, options: RecordOptions,
-             extra: list[tuple[str, str]] = ()) -> tuple[BookSpec, BookInputs]:
-    """Spec and inputs for a workbook of a training run: its model, data and replayed record."""
-    _check_options(options)
-    model = outcome.model
+@dataclass(frozen=True)
+class Plan:
+    """What ``build`` writes: the spec and inputs, and one line for each thing it left out."""
+
+    spec: BookSpec
+    inputs: BookInputs
+    notes: tuple[str, ...] = ()
+
+
+#: Record columns filled on a step's last row only (gradients, velocities, new parameters).
+STEP_COLUMNS = ("g", "gb", "v", "vb", "w", "wb")
+
+
+def record_columns(layout: BookLayout) -> tuple[int, int]:
+    """Formula columns of the record filled on every row, and those filled on a step's last row only."""
+    formulas = [c for c in layout.record.columns if c.role == "formula"]
+    per_step = sum(c.key[0] in STEP_COLUMNS for c in formulas)
+    return len(formulas) - per_step, per_step
+
+
+def costs(model: Model, table: dataio.Table, settings: TrainSettings, n_train: int, max_cells: int) -> Costs:
+    """Formula cells per Scoring case and per record row, from the columns the layout gives them."""
+    batch = n_train if settings.batch_size is None else min(settings.batch_size, max(n_train, 1))
+    probe = RecordSpec(steps=((0,) * max(batch, 1),), epochs=(1,), momentum=settings.momentum > 0, l2=settings.l2 > 0)
+    spec = make_spec(model, table, ("",) * len(table.rows), probe, [])
+    layout = build_layout(spec)
+    per_record = 0
+    if layout.record is not None:  # a step's gradients and new parameters sit on its last row only
+        per_row, per_step = record_columns(layout)
+        per_record = per_row + -(-per_step // max(batch, 1))
+    parameters = sum(u * (spec.fan_in(k) + 1) for k, u in enumerate(spec.units))
+    fixed = len(spec.inputs) + 2 * sum(spec.units) + 4 * len(spec.outputs) + 16 + len(spec.classes) ** 2 + parameters
+    return Costs(per_case=sum(c.role == "formula" for c in layout.scoring.columns), per_record_row=per_record,
+                 n_cases=len(table.rows), n_train=n_train, epochs=settings.epochs, batch=max(batch, 1), cap=max_cells,
+                 fixed=fixed)
+
+
+def _subset(table: dataio.Table, cases: np.ndarray) -> dataio.Table:
+    if len(cases) == len(table.rows):
+        return table
+    return replace(table, rows=tuple(table.rows[i] for i in cases), lines=tuple(table.lines[i] for i in cases))
+
+
+def _renumbered(record: RecordSpec | None, cases: np.ndarray) -> RecordSpec | None:
+    """The record's steps with case numbers of the Scoring sample."""
+    if record is None:
+        return None
+    position = {int(c): n for n, c in enumerate(cases)}
+    return replace(record, steps=tuple(tuple(position[c] for c in step) for step in record.steps))
+
+
+def plan_workbook(model: Model, table: dataio.Table, settings: TrainSettings | None, train_rows: np.ndarray,
+                  initial: tuple[Layer, ...], requested: Requested, max_cells: int,
+                  metrics: list[tuple[str, Metrics]], sets: list[str], extra: list[tuple[str, str]]) -> Plan:
+    """The spec and inputs of a workbook of ``model`` and ``table``, sized to fit ``max_cells``: a record
+    of the run from ``initial`` on ``train_rows`` (when targets and ``settings`` allow one)."""
+    kind = target_kind(model, table)
+    record_possible = kind != "none" and settings is not None and len(train_rows) > 0 and \
+        not any(layer.activation.name == "step" for layer in model.layers)
+    run = settings or TrainSettings()
+    size = costs(model, table, run, len(train_rows), max_cells)
+    extent = choose(size, requested, record_possible)
+    record = record_schedule(train_rows, run, extent.epochs, extent.rows) if extent.epochs else None
+    needed = np.array([c for step in record.steps for c in step] if record else [], dtype=int)
+    cases = scoring_sample(len(table.rows), extent.scoring, needed)
+    sample = _subset(table, cases)
+    notes = describe_extent(extent, size, len(cases), len(table.rows))
+    lines = provenance(model, table, run if record else None, extent, metrics, extra)
+    spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
+    return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial), tuple(notes))
+
+
+def from_fit(outcome: FitOutcome, table: dataio.Table, settings: TrainSettings, requested: Requested,
+             max_cells: int = DEFAULT_MAX_CELLS, extra: list[tuple[str, str]] = ()) -> Plan:
+    """The workbook of a training run: its model, data and replayed record."""
     sets = ["holdout"] * len(table.rows)
     for n in outcome.train_rows:
         sets[n] = "training"
-    record = record_schedule(outcome.train_rows, settings, options)
-    spec = make_spec(model, table, tuple(sets), record, provenance(model, table, settings, options, list(extra)))
-    inputs = make_inputs(model, table, spec.target_kind, settings, outcome.result.initial.layers)
-    return spec, inputs
+    metrics = [("the trainer, training rows", outcome.train_metrics)]
+    if outcome.holdout_metrics is not None:
+        metrics.append(("the trainer, holdout rows", outcome.holdout_metrics))
+    return plan_workbook(outcome.model, table, settings, outcome.train_rows, outcome.result.initial.layers,
+                         requested, max_cells, metrics, sets, list(extra))
 
 
-def from_model(model: Model, table: dataio.Table | None, settings: TrainSettings | None, options: RecordOptions,
-               extra: list[tuple[str, str]] = ()) -> tuple[BookSpec, BookInputs, list[str]]:
-    """Spec and inputs for a given model; with targets in the data, a record starting from its weights."""
-    _check_options(options)
-    notes: list[str] = []
-    record = None
+def from_model(model: Model, table: dataio.Table | None, settings: TrainSettings | None, requested: Requested,
+               max_cells: int = DEFAULT_MAX_CELLS, extra: list[tuple[str, str]] = ()) -> Plan:
+    """The workbook of a given model: parameters and calculator; with data, scoring; with targets in the
+    data, a record that continues training from the model's weights with ``settings``."""
     if table is not None and not model.target:
         others = [c for c in table.header if c not in model.inputs]
         if len(others) == 1:  # a hand-written model without "target": the one other column is it
             model = replace(model, target=(others[0],))
+    if table is None:
+        spec = make_spec(model, None, (), None, provenance(model, None, None, None, [], list(extra)))
+        return Plan(spec, make_inputs(model, None, "none", settings, model.layers))
+    notes = []
     kind = target_kind(model, table)
-    if table is not None and kind != "none" and settings is not None:
-        untrainable = [layer.activation.name for layer in model.layers if layer.activation.name == "step"]
-        if untrainable:
-            notes.append("no training record: step units cannot be trained by gradient descent")
-        else:
-            record = record_schedule(np.arange(len(table.rows)), settings, options)
-    sets = ("training" if record is not None else "",) * (0 if table is None else len(table.rows))
-    spec = make_spec(model, table, sets, record, provenance(model, table, settings if record else None, options,
-                                                            list(extra)))
-    inputs = make_inputs(model, table, spec.target_kind, settings, model.layers)
-    return spec, inputs, notes
+    if kind == "none" and model.target:
+        notes.append(f"the data has no target column {', '.join(model.target)!r}: the workbook scores the cases "
+                     "(no loss, accuracy or training record); name the data's target column with --target")
+    if kind != "none" and any(layer.activation.name == "step" for layer in model.layers):
+        notes.append("no training record: step units cannot be trained by gradient descent")
+    metrics = []
+    if kind != "none":
+        targets = dataio.encode_targets(table, model.target, model.task, model.classes).values
+        metrics.append(("the model", evaluate(model, dataio.feature_matrix(table, model.inputs), targets)))
+    rows = np.arange(len(table.rows))
+    plan = plan_workbook(model, table, settings, rows, model.layers, requested, max_cells, metrics,
+                         ["training" if kind != "none" else ""] * len(table.rows), list(extra))
+    return replace(plan, notes=tuple(notes) + plan.notes)

@@ -331,9 +331,9 @@ def _outcome_entries(spec: BookSpec, table: Table, n: int, scored: Scored, refs:
     here, last = table.sheet, spec.n_layers - 1
     y_refs = [refs.a(last, k) for k in range(spec.units[last])]
     y_range = refs.a_range(last)
-    t_refs = [ref(table.cell(n, target_key(spec, k)), here) for k in range(spec.units[last])]
-    t_range = range_ref(table.span(n, target_key(spec, 0), spec.units[last]), here)
     if spec.has_targets:
+        t_refs = [ref(table.cell(n, target_key(spec, k)), here) for k in range(spec.units[last])]
+        t_range = range_ref(table.span(n, target_key(spec, 0), spec.units[last]), here)
         cell = table.cell(n, ("loss",))
         yield Entry(cell.row, cell.col, "formula",
                     fx.loss(spec.loss, spec.activations[-1], y_refs, t_refs, y_range, t_range), scored.loss[n])

@@ -64,6 +64,24 @@ class TrainSettings:
                 "shuffle": self.shuffle, "seed": self.seed, "momentum": self.momentum, "l2": self.l2}
 
 
+def stored_settings(model: Model) -> TrainSettings | None:
+    """The settings a model was trained with, as ``train`` stores them in the model file (None for a
+    model trained elsewhere, or a file that does not hold them validly)."""
+    raw = model.training.get("settings") if isinstance(model.training, dict) else None
+    if not isinstance(raw, dict):
+        return None
+    try:
+        batch = raw.get("batch_size", 1)
+        settings = TrainSettings(learning_rate=float(raw["learning_rate"]), epochs=int(raw["epochs"]),
+                                 batch_size=None if batch == "full" else int(batch), shuffle=bool(raw["shuffle"]),
+                                 seed=int(raw["seed"]), momentum=float(raw.get("momentum", 0.0)),
+                                 l2=float(raw.get("l2", 0.0)))
+        settings.validate()
+    except (KeyError, TypeError, ValueError, UsageError):
+        return None
+    return settings
+
+
 @dataclass(frozen=True)
 class TraceStep:
     """Everything one update computed. Per layer k (0-based) the tuples hold arrays:

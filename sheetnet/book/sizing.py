@@ -1,0 +1,144 @@
+"""How much of a training run and of the data a workbook holds, so that it fits the cap on formula
+cells by default.
+
+A workbook of every case and every step of a long run would hold millions of formulas, more than
+a spreadsheet application can use. Without size flags, ``build`` therefore chooses:
+
+* the Scoring sheet holds every case when they take at most half the cap, else a stated sample
+  (the training record's cases, and evenly spaced others);
+* the training record replays as many whole epochs, from the start, as the rest of the cap allows;
+  when not even one epoch of every training row fits, it replays the first epoch on the first
+  training rows that fit.
+
+Flags given by the user (``--trace-epochs``, ``--trace-rows``, ``--scoring-rows``) are kept; when they
+cannot fit, the error names values of each flag that would.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from sheetnet.errors import WorkbookFormatError
+
+
+@dataclass(frozen=True)
+class Requested:
+    """What the user asked for: None where a flag was not given (then sheetnet chooses)."""
+
+    epochs: int | None = None  # 0: no training record
+    rows: int | None = None
+    scoring_rows: int | None = None
+
+
+@dataclass(frozen=True)
+class Extent:
+    """What the workbook holds: ``epochs`` of the run on the first ``rows`` training rows (0 epochs:
+    no record), and ``scoring`` cases (None: all)."""
+
+    epochs: int
+    rows: int
+    scoring: int | None
+    notes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Costs:
+    """Formula cells per Scoring case and per record row; the run's size; the cap."""
+
+    per_case: int
+    per_record_row: int
+    n_cases: int
+    n_train: int
+    epochs: int
+    batch: int
+    cap: int
+    fixed: int = 0  # the other sheets' formulas (calculator, summary, final parameters), at most
+    per_epoch: int = 3  # a row of the Epochs sheet
+
+    def cells(self, epochs: int, rows: int, scoring: int) -> int:
+        return self.fixed + scoring * self.per_case + epochs * (rows * self.per_record_row + self.per_epoch)
+
+    @property
+    def room(self) -> int:
+        """The cap less the other sheets' formulas: what Scoring and the record share."""
+        return max(self.cap - self.fixed, 0)
+
+
+def choose(costs: Costs, requested: Requested, record_possible: bool) -> Extent:
+    """The extent of the workbook: the user's flags where given, the most that fits elsewhere."""
+    wanted_epochs = 0 if not record_possible else requested.epochs
+    scoring = _scoring(costs, requested)
+    room = costs.room - scoring * costs.per_case
+    if wanted_epochs == 0:
+        return _checked(costs, Extent(0, 0, scoring), requested)
+    rows = min(costs.n_train, requested.rows) if requested.rows is not None else costs.n_train
+    if wanted_epochs is not None:
+        return _checked(costs, Extent(min(wanted_epochs, costs.epochs), rows, scoring), requested)
+    per_epoch = rows * costs.per_record_row + costs.per_epoch
+    epochs = min(costs.epochs, room // per_epoch) if per_epoch else costs.epochs
+    if epochs >= 1:
+        return _checked(costs, Extent(int(epochs), rows, scoring), requested)
+    if requested.rows is None:
+        fit = (room - costs.per_epoch) // costs.per_record_row
+        rows = max(costs.batch, fit - fit % costs.batch) if fit >= costs.batch else int(fit)
+    return _checked(costs, Extent(1, max(int(rows), 0), scoring), requested)
+
+
+def _scoring(costs: Costs, requested: Requested) -> int:
+    if requested.scoring_rows is not None:
+        return min(costs.n_cases, requested.scoring_rows)
+    if costs.n_cases * costs.per_case <= costs.room // 2:
+        return costs.n_cases
+    return max(1, (costs.room // 2) // costs.per_case)
+
+
+def _checked(costs: Costs, extent: Extent, requested: Requested) -> Extent:
+    """The extent, if it fits (an explicit request may not): else an error naming flags that fit."""
+    scoring = extent.scoring
+    total = costs.cells(extent.epochs, extent.rows, scoring)
+    if total <= costs.cap and (extent.epochs == 0 or extent.rows >= 1):
+        return Extent(extent.epochs, extent.rows, None if scoring == costs.n_cases else scoring)
+    half = costs.room // 2
+    fit_scoring = max(1, half // costs.per_case)
+    fit_epochs = half // max(1, costs.n_train * costs.per_record_row)
+    fit_rows = half // max(1, costs.per_record_row)
+    advice = [f"--scoring-rows {fit_scoring:,}"]
+    advice.append(f"--trace-epochs {fit_epochs:,}" if fit_epochs >= 1 else
+                  f"--trace-epochs 1 --trace-rows {fit_rows:,}")
+    advice.append("--trace-epochs 0 (no training record)")
+    raise WorkbookFormatError(
+        f"the workbook would hold about {total:,} formula cells ({scoring:,} cases x {costs.per_case} in Scoring, "
+        f"{extent.epochs:,} epochs x {extent.rows:,} rows x {costs.per_record_row} in the training record), more than "
+        f"the cap of {costs.cap:,}: try {', '.join(advice)}, or raise the cap with --max-cells "
+        f"{total + total // 10:,}")
+
+
+def scoring_sample(n_cases: int, size: int | None, needed: np.ndarray) -> np.ndarray:
+    """The cases the Scoring sheet holds, in data order: the ``needed`` ones (the record's) and evenly
+    spaced others up to ``size`` (all when ``size`` is None)."""
+    if size is None or size >= n_cases:
+        return np.arange(n_cases)
+    chosen = set(np.unique(needed).tolist())
+    others = np.setdiff1d(np.arange(n_cases), needed)
+    room = max(0, size - len(chosen))
+    if room and others.size:
+        picks = np.linspace(0, others.size - 1, num=min(room, others.size)).round().astype(int)
+        chosen.update(others[np.unique(picks)].tolist())
+    return np.array(sorted(chosen), dtype=int)
+
+
+def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int) -> list[str]:
+    """One line each for what was left out, and how to record more."""
+    lines = []
+    if extent.epochs and (extent.epochs < costs.epochs or extent.rows < costs.n_train):
+        rows = "all" if extent.rows >= costs.n_train else f"the first {extent.rows:,} of {costs.n_train:,}"
+        lines.append(f"the training record replays epochs 1-{extent.epochs} of {costs.epochs} on {rows} training "
+                     f"rows (to fit {costs.cap:,} formula cells); record more with --trace-epochs / --trace-rows "
+                     "and --max-cells")
+    if sample < all_cases:
+        lines.append(f"the Scoring sheet holds {sample:,} of the {all_cases:,} cases (the record's cases and evenly "
+                     "spaced others); its summary is over those; metrics over every case are in the Guide; "
+                     "set --scoring-rows and --max-cells for more")
+    return lines
