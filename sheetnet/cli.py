@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet.book.build import DEFAULT_MAX_CELLS, from_fit, from_model, write_workbook
+from sheetnet.book.build import DEFAULT_MAX_CELLS, Plan, from_fit, from_model, without_record, write_workbook
 from sheetnet.book.signing import key_id, key_readable_by_others, new_key_text, read_key
 from sheetnet.book.sizing import Requested
 from sheetnet.checks.annotate import annotate
@@ -364,19 +364,20 @@ def cmd_build(args: argparse.Namespace) -> int:
         outcome, table, settings = run_fit(args)
         print("\n".join(summary_lines(outcome)))
         plan = from_fit(outcome, table, settings, requested, args.max_cells)
-    notes = list(plan.notes)
-    write = lambda spec: write_workbook(spec, plan.inputs, args.out, force=args.force,  # noqa: E731
-                                        max_cells=args.max_cells, progress=Progress(1, "writing", quiet=args.quiet),
-                                        sign_key=key)
+    def write(plan: Plan):
+        return write_workbook(plan.spec, plan.inputs, args.out, force=args.force, max_cells=args.max_cells,
+                              progress=Progress(1, "writing", quiet=args.quiet), sign_key=key)
+
     try:
-        result = write(plan.spec)
+        result = write(plan)
     except TrainingError as exc:
         if not args.model or plan.spec.record is None:
             raise
         # a given model's scores still belong in a workbook when continuing training from it diverges
-        notes.append(f"no training record: {exc} (from the model's weights at learning rate "
-                     f"{plan.inputs.learning_rate:g})")
-        result = write(replace(plan.spec, record=None))
+        plan = without_record(plan, f"{exc} (from the model's weights at learning rate "
+                                    f"{plan.inputs.learning_rate:g})")
+        result = write(plan)
+    notes = list(plan.notes)
     if key is not None:
         notes.append(f"signed with key id {key_id(key)}")
     for note in notes:

@@ -45,8 +45,19 @@ def _scaling(scaler, n_inputs: int) -> Scaling | None:
     raise UsageError(f"unsupported scaler {kind}; supported: {SUPPORTED}")
 
 
-def from_sklearn(estimator) -> Model:
-    """The sheetnet model of a fitted scikit-learn MLP (see ``SUPPORTED``)."""
+def _names(value, count: int, what: str) -> tuple[str, ...] | None:
+    if value is None:
+        return None
+    names = (value,) if isinstance(value, str) else tuple(str(v) for v in value)
+    if len(names) != count:
+        raise UsageError(f"{what}: the model has {count}, and {len(names)} name(s) were given: {', '.join(names)}")
+    return names
+
+
+def from_sklearn(estimator, target: str | list[str] | None = None, inputs: list[str] | None = None) -> Model:
+    """The sheetnet model of a fitted scikit-learn MLP (see ``SUPPORTED``). Input names are those the
+    estimator was fitted with (a DataFrame's columns), or ``inputs``, else x1, x2, ...; ``target`` names
+    the data's target column (one per output for a regressor or a multilabel classifier), else "y"."""
     scaler, mlp = _split(estimator)
     kind = _kind(mlp)
     if kind not in ("MLPClassifier", "MLPRegressor"):
@@ -55,16 +66,23 @@ def from_sklearn(estimator) -> Model:
         raise UsageError(f"the {kind} is not fitted yet")
     n_inputs = mlp.coefs_[0].shape[0]
     names = [str(n) for n in getattr(estimator, "feature_names_in_", getattr(mlp, "feature_names_in_", []))]
-    inputs = tuple(names) if len(names) == n_inputs else tuple(f"x{i + 1}" for i in range(n_inputs))
+    fitted = tuple(names) if len(names) == n_inputs else tuple(f"x{i + 1}" for i in range(n_inputs))
+    inputs = _names(inputs, n_inputs, "inputs") or fitted
     hidden = Activation(_ACTIVATIONS[mlp.activation])
     output = Activation(_ACTIVATIONS[mlp.out_activation_])
     acts = [hidden] * (len(mlp.coefs_) - 1) + [output]
     layers = tuple(Layer(np.asarray(w, float).T.copy(), np.asarray(b, float).copy(), act)
                    for w, b, act in zip(mlp.coefs_, mlp.intercepts_, acts, strict=True))
     task, outputs, classes = _task(mlp, layers[-1].units)
+    single = task in ("binary", "multiclass")
+    targets = _names(target, 1 if single else len(outputs), "target") or (("y",) if single else outputs)
+    if not single:
+        outputs = targets  # a regressor's (or multilabel) outputs are its target columns
+    if task == "binary":
+        outputs = targets
     return Model(inputs=inputs, outputs=outputs, task=task, layers=layers,
                  loss="squared" if task == "regression" else "cross-entropy", scaling=_scaling(scaler, n_inputs),
-                 target=("y",) if task in ("binary", "multiclass") else outputs, classes=classes,
+                 target=targets, classes=classes,
                  training={"source": f"scikit-learn {kind}", "n_iter": int(getattr(mlp, "n_iter_", 0)),
                            "final_loss": float(getattr(mlp, "loss_", 0.0) or 0.0)})
 

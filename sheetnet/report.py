@@ -7,9 +7,11 @@ from sheetnet.checks.verify import Comparison, VerifyReport
 SHOWN = 5
 
 
-def _cells(items: list[dict], key: str = "cell") -> str:
-    names = [f"{i['sheet']}!{i[key]}" for i in items[:SHOWN]]
-    more = f" and {len(items) - SHOWN} more" if len(items) > SHOWN else ""
+def _cells(items: list[dict], total: int | None = None) -> str:
+    """The first cells of a list, and how many more there are in all (lists are capped; totals are not)."""
+    total = len(items) if total is None else total
+    names = [f"{i['sheet']}!{i['cell']}" for i in items[:SHOWN]]
+    more = f" and {total - len(names):,} more" if total > len(names) else ""
     return ", ".join(names) + more
 
 
@@ -34,7 +36,7 @@ def comparison_lines(c: Comparison) -> list[str]:
         lines.append(f"{len(c.errors)} cell(s) show spreadsheet errors: " + _cells(c.errors))
     if c.stale_count:
         lines.append(f"{c.stale_count:,} cached value(s) are stale (saved value differs from the recalculation): "
-                     + _cells(c.stale_cached))
+                     + _cells(c.stale_cached, c.stale_count))
     if c.general_path:
         lines.append(f"{len(c.general_path)} cell(s) used the formulas package's general path: "
                      + ", ".join(c.general_path[:SHOWN]))
@@ -94,7 +96,9 @@ def audit_lines(report) -> list[str]:
                 detail = f" (expected {finding.expected!r}, found {finding.found!r})"
             lines.append(f"  {where}: {finding.note}{detail}" if where else f"  {finding.note}{detail}")
         if count > 20:
-            lines.append(f"  ... and {count - 20} more (see --json)")
+            listed = len(shown)
+            lines.append(f"  ... and {count - 20:,} more (--json lists " +
+                         ("all of them)" if listed == count else f"the first {listed:,})"))
     lines += [f"note: {note}" for note in report.notes]
     if report.first_diverging_step is not None:
         lines.append(f"the training record first diverges from the reference at step {report.first_diverging_step}")

@@ -15,7 +15,7 @@ Operations (a list of dicts; rows and columns 0-based):
   {"op": "insert_columns" | "delete_columns", "sheet": S, "at": 2, "count": 1}
   {"op": "rename", "sheet": S, "to": "New name"}
   {"op": "sort", "sheet": S, "range": "A15:K134", "column": 3, "descending": true}
-  {"op": "move", "sheet": S, "range": "B12:F14", "to": "H30"}    cut and paste a block
+  {"op": "move", "sheet": S, "range": "B12:F14", "to": "H30"}    cut and paste a block ("to_sheet": another)
 """
 
 from __future__ import annotations
@@ -46,8 +46,14 @@ def edit_in_libreoffice(source: Path, target: Path, operations: list[dict], time
     with tempfile.TemporaryDirectory(prefix="sheetnet-lo-edit-") as work:
         ops = Path(work) / "ops.json"
         ops.write_text(json.dumps(operations))
-        result = subprocess.run([SYSTEM_PYTHON, __file__, str(ops), str(Path(source).resolve()),
-                                 str(Path(target).resolve()), work], capture_output=True, text=True, timeout=timeout)
+        staged = Path(work) / "in" / "book.xlsx"  # LibreOffice locks what it opens: never the source itself
+        staged.parent.mkdir()
+        shutil.copyfile(source, staged)
+        for _attempt in range(2):  # a start of soffice now and then fails on a busy machine: try once more
+            result = subprocess.run([SYSTEM_PYTHON, __file__, str(ops), str(staged), str(Path(target).resolve()),
+                                     work], capture_output=True, text=True, timeout=timeout)
+            if result.returncode == 0 and Path(target).exists():
+                break
     if result.returncode != 0 or not Path(target).exists():
         raise RuntimeError(f"LibreOffice edit failed: {result.stderr.strip()[-2000:]}")
     return Path(target)
@@ -114,7 +120,8 @@ def _apply(doc, op: dict) -> None:
         sheet.setName(op["to"])
     elif kind == "move":
         source = sheet.getCellRangeByName(op["range"]).getRangeAddress()
-        sheet.moveRange(sheet.getCellRangeByName(op["to"]).getCellAddress(), source)
+        destination = doc.Sheets.getByName(op.get("to_sheet", op["sheet"]))
+        sheet.moveRange(destination.getCellRangeByName(op["to"]).getCellAddress(), source)
     elif kind == "sort":
         _sort(sheet.getCellRangeByName(op["range"]), op["column"], op.get("descending", False))
     else:

@@ -91,16 +91,19 @@ def make_spec(model: Model, table: dataio.Table | None, sets: tuple[str, ...], r
 
 
 def make_inputs(model: Model, table: dataio.Table | None, kind: str, settings: TrainSettings | None,
-                initial: tuple[Layer, ...], threshold: float = 0.5) -> BookInputs:
+                initial: tuple[Layer, ...], record: RecordSpec | None, threshold: float = 0.5) -> BookInputs:
+    """The editable values. Without a ``record`` there are no initial parameters, momentum or L2 (the
+    description must say what the workbook holds)."""
     n = len(model.inputs)
     offset = model.scaling.offset if model.scaling else np.zeros(n)
     divisor = model.scaling.scale if model.scaling else np.ones(n)
     data = _case_rows(model, table, kind) if table is not None else ()
     calculator = np.array(data[0][:n], dtype=float) if data else np.zeros(n)
     settings = settings or TrainSettings()
+    momentum, l2 = (settings.momentum, settings.l2) if record is not None else (0.0, 0.0)
     return BookInputs(layers=model.layers, offset=np.asarray(offset, float), divisor=np.asarray(divisor, float),
                       data=data, threshold=threshold, calculator=calculator, learning_rate=settings.learning_rate,
-                      momentum=settings.momentum, l2=settings.l2, initial=initial)
+                      momentum=momentum, l2=l2, initial=initial if record is not None else ())
 
 
 def provenance(model: Model, table: dataio.Table | None, settings: TrainSettings | None, extent: Extent | None,
@@ -210,13 +213,11 @@ def costs(model: Model, table: dataio.Table, settings: TrainSettings, n_train: i
     probe = RecordSpec(steps=((0,) * max(batch, 1),), epochs=(1,), momentum=settings.momentum > 0, l2=settings.l2 > 0)
     spec = make_spec(model, table, ("",) * len(table.rows), probe, [])
     layout = build_layout(spec)
-    per_record = 0
-    if layout.record is not None:  # a step's gradients and new parameters sit on its last row only
-        per_row, per_step = record_columns(layout)
-        per_record = per_row + -(-per_step // max(batch, 1))
+    per_row, per_step = record_columns(layout) if layout.record is not None else (0, 0)
     parameters = sum(u * (spec.fan_in(k) + 1) for k, u in enumerate(spec.units))
     fixed = len(spec.inputs) + 2 * sum(spec.units) + 4 * len(spec.outputs) + 16 + len(spec.classes) ** 2 + parameters
-    return Costs(per_case=sum(c.role == "formula" for c in layout.scoring.columns), per_record_row=per_record,
+    return Costs(per_case=sum(c.role == "formula" for c in layout.scoring.columns), per_record_row=per_row,
+                 per_step=per_step,
                  n_cases=len(table.rows), n_train=n_train, epochs=settings.epochs, batch=max(batch, 1), cap=max_cells,
                  fixed=fixed)
 
@@ -253,7 +254,13 @@ def plan_workbook(model: Model, table: dataio.Table, settings: TrainSettings | N
     notes = describe_extent(extent, size, len(cases), len(table.rows))
     lines = provenance(model, table, run if record else None, extent, metrics, extra)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
-    return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial), tuple(notes))
+    return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial, spec.record), tuple(notes))
+
+
+def without_record(plan: Plan, why: str) -> Plan:
+    """The plan with no training record (and so no initial parameters, momentum or L2)."""
+    inputs = replace(plan.inputs, initial=(), momentum=0.0, l2=0.0)
+    return Plan(replace(plan.spec, record=None), inputs, (*plan.notes, f"no training record: {why}"))
 
 
 def from_fit(outcome: FitOutcome, table: dataio.Table, settings: TrainSettings, requested: Requested,
@@ -279,7 +286,7 @@ def from_model(model: Model, table: dataio.Table | None, settings: TrainSettings
             model = replace(model, target=(others[0],))
     if table is None:
         spec = make_spec(model, None, (), None, provenance(model, None, None, None, [], list(extra)))
-        return Plan(spec, make_inputs(model, None, "none", settings, model.layers))
+        return Plan(spec, make_inputs(model, None, "none", settings, model.layers, None))
     notes = []
     kind = target_kind(model, table)
     if kind == "none" and model.target:

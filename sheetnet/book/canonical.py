@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import re
 
+from sheetnet.book.addresses import quote_sheet
+
 _SPACE_OUTSIDE_STRINGS = re.compile(r'("(?:[^"]|"")*")|\s+')
 _NUMBER = re.compile(r'("(?:[^"]|"")*")|(?<![A-Za-z_$0-9.])([0-9]+\.?[0-9]*(?:[Ee][+-]?[0-9]+)?)(?![A-Za-z_(0-9])')
 _STRING = re.compile(r'("(?:[^"]|"")*")')
@@ -23,6 +25,18 @@ def normalize_formula(text: str) -> str:
     text = _NUMBER.sub(lambda m: m.group(1) or repr(float(m.group(2))), text)
     parts = _STRING.split(text)
     return "".join(p if p.startswith('"') else p.upper().replace("_XLFN.", "") for p in parts)
+
+
+def same_formula(found: str, expected: str, sheet: str) -> bool:
+    """Two spellings of one formula on ``sheet``: also when one names the sheet in a reference to its
+    own cells (LibreOffice keeps the sheet's name on a block pasted onto the sheet that uses it)."""
+    if found == expected.removeprefix("="):
+        return True
+    a, b = normalize_formula(found), normalize_formula(expected)
+    if a == b:
+        return True
+    own = normalize_formula(quote_sheet(sheet) + "!")
+    return a.replace(own, "") == b.replace(own, "")
 
 
 def constant_text(value: object) -> str | None:

@@ -170,7 +170,7 @@ def read_inputs(book: Workbook, layout: BookLayout, locate: Locate | None = None
     invalid = [item for item in invalid if groups is None or item.group in groups]
     if invalid:
         more = f" (and {len(invalid) - 1} more invalid input cells)" if len(invalid) > 1 else ""
-        raise InvalidInputsError(f"{book.path}: input cell {invalid[0]}{more}; 'sheetnet audit' lists every one",
+        raise InvalidInputsError(f"{book.path}: input cell {invalid[0]}{more}; 'sheetnet audit' shows what changed",
                                  invalid)
     return inputs
 

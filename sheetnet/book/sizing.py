@@ -45,10 +45,12 @@ class Extent:
 
 @dataclass(frozen=True)
 class Costs:
-    """Formula cells per Scoring case and per record row; the run's size; the cap."""
+    """Formula cells per Scoring case, per record row and per step (its last row's gradients and new
+    parameters); the run's size; the cap."""
 
     per_case: int
     per_record_row: int
+    per_step: int
     n_cases: int
     n_train: int
     epochs: int
@@ -57,8 +59,12 @@ class Costs:
     fixed: int = 0  # the other sheets' formulas (calculator, summary, final parameters), at most
     per_epoch: int = 3  # a row of the Epochs sheet
 
+    def epoch(self, rows: int) -> int:
+        """Formula cells of one epoch of the record on ``rows`` training rows."""
+        return rows * self.per_record_row + -(-rows // self.batch) * self.per_step + self.per_epoch
+
     def cells(self, epochs: int, rows: int, scoring: int) -> int:
-        return self.fixed + scoring * self.per_case + epochs * (rows * self.per_record_row + self.per_epoch)
+        return self.fixed + scoring * self.per_case + epochs * self.epoch(rows)
 
     @property
     def room(self) -> int:
@@ -76,13 +82,14 @@ def choose(costs: Costs, requested: Requested, record_possible: bool) -> Extent:
     rows = min(costs.n_train, requested.rows) if requested.rows is not None else costs.n_train
     if wanted_epochs is not None:
         return _checked(costs, Extent(min(wanted_epochs, costs.epochs), rows, scoring), requested)
-    per_epoch = rows * costs.per_record_row + costs.per_epoch
+    per_epoch = costs.epoch(rows)
     epochs = min(costs.epochs, room // per_epoch) if per_epoch else costs.epochs
     if epochs >= 1:
         return _checked(costs, Extent(int(epochs), rows, scoring), requested)
     if requested.rows is None:
-        fit = (room - costs.per_epoch) // costs.per_record_row
-        rows = max(costs.batch, fit - fit % costs.batch) if fit >= costs.batch else int(fit)
+        per_batch = costs.batch * costs.per_record_row + costs.per_step
+        fit = max(room - costs.per_epoch, 0) // per_batch * costs.batch
+        rows = int(fit) if fit else max(0, (room - costs.per_epoch - costs.per_step) // costs.per_record_row)
     return _checked(costs, Extent(1, max(int(rows), 0), scoring), requested)
 
 
@@ -102,8 +109,8 @@ def _checked(costs: Costs, extent: Extent, requested: Requested) -> Extent:
         return Extent(extent.epochs, extent.rows, None if scoring == costs.n_cases else scoring)
     half = costs.room // 2
     fit_scoring = max(1, half // costs.per_case)
-    fit_epochs = half // max(1, costs.n_train * costs.per_record_row)
-    fit_rows = half // max(1, costs.per_record_row)
+    fit_epochs = half // max(1, costs.epoch(costs.n_train))
+    fit_rows = half // max(1, costs.per_record_row + costs.per_step)
     advice = [f"--scoring-rows {fit_scoring:,}"]
     advice.append(f"--trace-epochs {fit_epochs:,}" if fit_epochs >= 1 else
                   f"--trace-epochs 1 --trace-rows {fit_rows:,}")

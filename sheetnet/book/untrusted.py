@@ -251,9 +251,10 @@ def layout_extents(layout: BookLayout) -> dict[str, _Extent]:
     for f in dataclasses.fields(layout):
         if f.name not in ("spec", "step_rows"):
             visit(getattr(layout, f.name))
+    present = set(layout.sheet_names())  # a workbook without cases has no Scoring sheet (its table is empty)
     for sheet, extent in extents.items():
         extent.rows = _covered_rows(spans[sheet])
-    return extents
+    return {sheet: extent for sheet, extent in extents.items() if sheet in present}
 
 
 def _held(book: Workbook) -> dict[str, _Extent]:
@@ -276,14 +277,17 @@ def _against_the_workbook(layout: BookLayout, book: Workbook) -> list[Problem]:
                                           f"{claimed.last_col + 1:,}: outside the sheet's {MAX_ROWS:,} x {MAX_COLS:,}")
             continue
         found = held.get(sheet, largest)  # a renamed sheet may be any of the others
-        _compare_extent(check, sheet, claimed, found)
+        _compare_extent(check, sheet, claimed, found, sheet not in held)
     _parameter_names(check, layout, book)
     return check.problems
 
 
-def _compare_extent(check: Checker, sheet: str, claimed: _Extent, found: _Extent) -> None:
+def _compare_extent(check: Checker, sheet: str, claimed: _Extent, found: _Extent, missing: bool) -> None:
     where = f"sheet {sheet!r}"
-    if claimed.rows > _room(found.rows):
+    if missing and claimed.rows > _room(found.rows):
+        check.add(where, f"is not in the workbook (deleted or renamed), and the description needs {claimed.rows:,} "
+                         f"rows of cells there, more than any sheet holds ({found.rows:,})")
+    elif claimed.rows > _room(found.rows):
         check.add(where, f"the description needs {claimed.rows:,} rows of cells; the sheet holds {found.rows:,}")
     elif claimed.last_row > _room(found.last_row + 1) - 1:
         check.add(where, f"the description needs rows down to {claimed.last_row + 1:,}; the sheet's last row is "
@@ -294,11 +298,12 @@ def _compare_extent(check: Checker, sheet: str, claimed: _Extent, found: _Extent
 
 
 def _parameter_names(check: Checker, layout: BookLayout, book: Workbook) -> None:
-    """Each block the file names (W_1, b_1, scale_offset...) has the size the description gives it:
-    applications move names with their cells, so a moved block keeps its size."""
+    """Each block the file names (W_1, b_1, scale_offset...) is about the size the description gives it:
+    applications move names with their cells (rows inserted or deleted inside a block change it a
+    little, which the audit reports as structure)."""
     for name, block in layout.defined_names().items():
         found = parse_range(book.names.get(name, ""))
-        if found is not None and (found.nrows, found.ncols) != (block.nrows, block.ncols):
+        if found is not None and (block.nrows > _room(found.nrows) or block.ncols > _room(found.ncols)):
             check.add(f"defined name {name}", f"the description makes it {block.nrows} x {block.ncols} cells; the "
                                               f"workbook's {name} covers {found.nrows} x {found.ncols}")
 

@@ -42,6 +42,7 @@ from sheetnet.book.addresses import (
     quote_sheet,
 )
 from sheetnet.book.canonical import target_text
+from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout, Table, build_layout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs_checked
@@ -107,11 +108,12 @@ class Alignment:
     def identity(self) -> bool:
         return not self.missing and not self.moves and all(m.found == s and m.identity for s, m in self.sheets.items())
 
-    def _moved(self, sheet: str, row: int, col: int) -> tuple[int, int] | None:
-        """Where a cell of a block that was cut and pasted elsewhere is now (None: not in one)."""
+    def _moved(self, sheet: str, row: int, col: int) -> Cell | None:
+        """Where a cell of a block that was cut and pasted elsewhere (maybe onto another sheet) is now
+        (None: it is not in such a block)."""
         for source, target in self.moves.get(sheet, ()):
             if source.top <= row <= source.bottom and source.left <= col <= source.right:
-                return target.top + row - source.top, target.left + col - source.left
+                return Cell(target.sheet, target.top + row - source.top, target.left + col - source.left)
         return None
 
     @property
@@ -127,7 +129,9 @@ class Alignment:
         if m is None:
             return None
         moved = self._moved(cell.sheet, cell.row, cell.col)
-        row, col = moved if moved is not None else (m.row(cell.row), m.col(cell.col))
+        if moved is not None:
+            return moved
+        row, col = m.row(cell.row), m.col(cell.col)
         return None if row < 0 or col < 0 else Cell(m.found, row, col)
 
     def locate_block(self, block: Block) -> Block | None:
@@ -138,7 +142,7 @@ class Alignment:
         first = self._moved(block.sheet, block.top, block.left)
         last = self._moved(block.sheet, block.bottom, block.right)
         if first is not None and last is not None:
-            return Block(m.found, first[0], first[1], last[0] - first[0] + 1, last[1] - first[1] + 1)
+            return Block(first.sheet, first.row, first.col, last.row - first.row + 1, last.col - first.col + 1)
         rows = _span(m.rows, block.top, block.bottom, m.row)
         cols = _span(m.cols, block.left, block.right, m.col)
         if rows is None or cols is None:
@@ -158,15 +162,14 @@ class Alignment:
         if m is None:
             return match.group(0)
         r0, c0 = int(match.group("r0")) - 1, column_index(match.group("c0"))
+        moved = self._moved_reference(match, sheet, r0, c0, here)
+        if moved is not None:
+            return moved
         if match.group("c1") is None:
             moved = self._point(m, r0, c0, here, sheet, bool(match.group("rd0")))
             text = "#REF!" if moved is None else _a1(moved, match.group("cd0"), match.group("rd0"))
         else:
             r1, c1 = int(match.group("r1")) - 1, column_index(match.group("c1"))
-            first, last = self._moved(sheet, r0, c0), self._moved(sheet, r1, c1)
-            if first is not None and last is not None:
-                return self._prefixed(prefix, m.found, _a1(first, match.group("cd0"), match.group("rd0")) + ":" +
-                                      _a1(last, match.group("cd1"), match.group("rd1")))
             if self._moves_with_sort(m, here, sheet, r0) and self._moves_with_sort(m, here, sheet, r1):
                 first = self._point(m, r0, c0, here, sheet, bool(match.group("rd0")))
                 last = self._point(m, r1, c1, here, sheet, bool(match.group("rd1")))
@@ -187,10 +190,21 @@ class Alignment:
     def _prefixed(prefix: str | None, sheet: str, text: str) -> str:
         return f"{quote_sheet(sheet)}!{text}" if prefix and text != "#REF!" else text
 
+    def _moved_reference(self, match: re.Match, sheet: str, r0: int, c0: int, here: Cell) -> str | None:
+        """A reference into a block that was cut and pasted elsewhere: to the block's new place (with the
+        sheet's name when that is not the formula's own sheet), or None."""
+        first = self._moved(sheet, r0, c0)
+        if first is None:
+            return None
+        text = _a1((first.row, first.col), match.group("cd0"), match.group("rd0"))
+        if match.group("c1") is not None:
+            last = self._moved(sheet, int(match.group("r1")) - 1, column_index(match.group("c1")))
+            if last is None:
+                return None
+            text += ":" + _a1((last.row, last.col), match.group("cd1"), match.group("rd1"))
+        return text if first.sheet == self.sheet_name(here.sheet) else f"{quote_sheet(first.sheet)}!{text}"
+
     def _point(self, m: SheetMap, row: int, col: int, here: Cell, sheet: str, absolute_row: bool):
-        moved = self._moved(sheet, row, col)
-        if moved is not None:
-            return moved
         if m.reordered and row in m.reordered:
             if self._moves_with_sort(m, here, sheet, row) and not absolute_row:
                 moved_here = m.row(here.row)  # a relative reference moves with its row in a sort
@@ -287,10 +301,11 @@ def looks_unmoved(book: Workbook, layout: BookLayout) -> bool:
 def align(book: Workbook, layout: BookLayout, entries: Iterable[tuple[str, object]]) -> Alignment:
     """The alignment of ``book`` to ``layout``; ``entries`` are the plan's (sheet, entry) pairs (only
     their positions and constant texts are used)."""
-    anchors = _anchor_texts(layout, entries)
+    guide = guide_entries(layout)
+    anchors = _anchor_texts(layout, [*entries, *guide])
     alignment = Alignment()
     mapping = _map_sheets(alignment, book, layout, anchors)
-    extents = _extents(layout)
+    extents = {**_extents(layout), L.GUIDE: (max(e.row for _, e in guide), 1)}
     for sheet, found in mapping.items():
         votes = _Votes()
         cells = book.sheets[found].values
@@ -313,7 +328,8 @@ def _find_moves(alignment: Alignment, book: Workbook, layout: BookLayout) -> Non
     for name, block in layout.defined_names().items():
         target = parse_range(book.names.get(name, ""))
         placed = alignment.locate_block(block)
-        if target is None or placed is None or target == placed or target.sheet != placed.sheet or \
+        sheets = {m.found for m in alignment.sheets.values()}
+        if target is None or placed is None or target == placed or target.sheet not in sheets or \
                 (target.nrows, target.ncols) != (block.nrows, block.ncols):
             continue
         values = book.sheets[placed.sheet].values
@@ -322,8 +338,15 @@ def _find_moves(alignment: Alignment, book: Workbook, layout: BookLayout) -> Non
             continue
         alignment.moves.setdefault(block.sheet, []).append((block, target))
         alignment.changes.append(Change(target.sheet, a1(target.top, target.left),
-                                        f"block {name} was moved from {a1(placed.top, placed.left)} to "
-                                        f"{a1(target.top, target.left)} of {target.sheet}"))
+                                        f"block {name} was moved from {placed.sheet}!{a1(placed.top, placed.left)} "
+                                        f"to {target.sheet}!{a1(target.top, target.left)}"))
+
+
+def guide_entries(layout: BookLayout) -> list[tuple[str, plan.Entry]]:
+    """The Guide's texts as entries (the Guide is prose, not a plan sheet, but its rows move too)."""
+    lines = guide_lines(layout, layout.defined_names())
+    return [(L.GUIDE, plan.Entry(row, col, "text", text)) for row, (_, left, right) in enumerate(lines)
+            for col, text in ((0, left), (1, right)) if text]
 
 
 def _extents(layout: BookLayout) -> dict[str, tuple[int, int]]:
@@ -449,13 +472,11 @@ def _key(value: object) -> object:
 def _table_votes(votes: _Votes, table: Table, labels: dict, cells: dict) -> None:
     """Table rows found by their labels, in the label columns the header anchors located."""
     label_cols = []
-    for key in _label_keys(table):
+    for key in _label_keys(table):  # where the header anchors put the label column (else where it was)
         counter = votes.cols.get(table.col(key))
-        if not counter:
-            return
-        label_cols.append(counter.most_common(1)[0][0])
+        label_cols.append(counter.most_common(1)[0][0] if counter else table.col(key))
     header = votes.rows.get(table.header_row)
-    start = header.most_common(1)[0][0] + 1 if header else table.first_row
+    start = header.most_common(1)[0][0] + 1 if header else 0  # a deleted header: look at every row
     rows_present = sorted({r for r, _ in cells if r >= start})
     for found_row in rows_present:
         key = tuple(_key(cells.get((found_row, c))) for c in label_cols)
@@ -570,7 +591,7 @@ def _moves(sheet: str, mapping: np.ndarray, what: str, cell, name, reordered: fr
                                                    f"(sheetnet wrote them as {name(i)}-{name(j)})"))
             i = j + 1
             continue
-        if i not in reordered and previous_expected >= 0 and previous_expected not in reordered:
+        if i not in reordered and previous_expected not in reordered:
             gap = int(mapping[i]) - previous_found - (i - previous_expected)
             if gap > 0:
                 at = previous_found + (i - previous_expected)

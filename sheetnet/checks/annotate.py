@@ -34,22 +34,28 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
         cell.font = Font(bold=True)
     for column, width in zip("ABCDE", (16, 28, 70, 40, 40), strict=True):
         sheet.column_dimensions[column].width = width
+    notes: dict[tuple[str, str], list[str]] = {}  # every finding of a cell in its one note, in report order
     for row, finding in enumerate(report.findings, start=2):  # (max_row would rescan the sheet each time)
         target = _target(book, finding)
         where = f"{finding.sheet}!{finding.cell}" if target is not None else (finding.sheet or finding.cell)
         sheet.append([finding.kind, where, finding.note, _text(finding.expected), _text(finding.found)])
+        for column in (4, 5):  # formula text shown as text, never as a live formula of this sheet
+            sheet.cell(row=row, column=column).data_type = "s"
         if target is None:
             continue
         link = sheet.cell(row=row, column=2)
         link.hyperlink = Hyperlink(ref=link.coordinate, location=f"{quote_sheet(finding.sheet)}!{finding.cell}")
         link.font = Font(color="0563C1", underline="single")
-        target.fill = PatternFill("solid", fgColor=FILLS[finding.kind])
+        lines = notes.setdefault((finding.sheet, finding.cell), [])
+        if not lines:
+            target.fill = PatternFill("solid", fgColor=FILLS[finding.kind])
         text = f"sheetnet audit ({finding.kind}): {finding.note}"
         if finding.expected is not None:
             text += f"\nexpected: {_text(finding.expected)}"
         if finding.found is not None:
             text += f"\nfound: {_text(finding.found)}"
-        target.comment = Comment(text[:2000], "sheetnet audit", width=320, height=140)
+        lines.append(text)
+        target.comment = Comment("\n\n".join(lines)[:2000], "sheetnet audit", width=320, height=140)
     cached = read_returned_workbook(source, allow_macros=True)
 
     def save(tmp: Path) -> None:

@@ -11,7 +11,7 @@ from collections import Counter
 
 from sheetnet.book import layout as L
 from sheetnet.book.addresses import Cell, a1, parse_a1
-from sheetnet.book.canonical import normalize_formula, same_value, target_text
+from sheetnet.book.canonical import same_formula, same_value, target_text
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import InvalidInput, input_cells
@@ -122,9 +122,13 @@ def _sheet_risks(report: AuditReport, name: str, cells: SheetCells) -> None:
             report.add(Finding(name, a1(*pos), "risks", None, "=" + formula, "volatile function"))
         if "[" in formula and re.search(r"\[[^\]]+\]", formula.split('"')[0]):
             report.add(Finding(name, a1(*pos), "risks", None, "=" + formula, "reference to another workbook"))
+    errors = sorted(pos for pos, value in cells.values.items() if isinstance(value, CellError))
+    if errors:  # one finding a sheet: an error spreads to every cell that uses it
+        codes = sorted({cells.values[pos].code for pos in errors})
+        report.add(Finding(name, a1(*errors[0]), "risks", None, len(errors),
+                           f"{len(errors):,} cell(s) on {name} show spreadsheet errors ({', '.join(codes)}), "
+                           f"the first at {a1(*errors[0])}"))
     for pos, value in cells.values.items():
-        if isinstance(value, CellError):
-            report.add(Finding(name, a1(*pos), "risks", None, value.code, "the cell shows a spreadsheet error"))
         if value is not None and (pos[0] in cells.hidden_rows or pos[1] in cells.hidden_cols):
             report.add(Finding(name, a1(*pos), "risks", None, plain(value), "content in a hidden row or column"))
 
@@ -192,7 +196,7 @@ def _check_formula(report: AuditReport, cells: SheetCells, where: Cell, expected
         note = "a constant typed over a formula" if value not in (None, "") else "a formula was deleted"
         report.add(Finding(where.sheet, a1(*here), "formula_edits", expected, plain(value), note))
         return False
-    if found == expected[1:] or normalize_formula(found) == normalize_formula(expected):
+    if same_formula(found, expected, where.sheet):
         return "#REF!" in expected
     if "#REF!" in found.upper():
         if "#REF!" in expected:
@@ -223,8 +227,12 @@ def check_guide(report: AuditReport, book: Workbook, layout: BookLayout, alignme
     if m is None:
         return
     values = book.sheets[m.found].values
-    differing = [a1(row, col) for row, (_, left, right) in enumerate(guide_lines(layout, layout.defined_names()))
-                 for col, text in ((0, left), (1, right)) if not same_value(values.get((row, col)), text or None)]
+    differing = []
+    for row, (_, left, right) in enumerate(guide_lines(layout, layout.defined_names())):
+        for col, text in ((0, left), (1, right)):
+            where = alignment.locate(Cell(L.GUIDE, row, col))
+            if where is not None and not same_value(values.get((where.row, where.col)), text or None):
+                differing.append(a1(where.row, where.col))
     if differing:
         report.add(Finding(m.found, differing[0], "structural", None, None,
                            f"the Guide's text differs from what the layout description gives in {len(differing)} "

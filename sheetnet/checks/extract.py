@@ -37,7 +37,7 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
         needed = ("parameters", "scaling", "training", "data") if after_training else ("parameters", "scaling")
         now = read_inputs(book, layout, locate=None if alignment is None else alignment.locate, groups=needed)
         inputs = as_built(now, description.original)
-        note = "parameters read from the Parameters sheet"
+        note = "parameters read from the parameter blocks" + (" (where they moved)" if alignment else "")
         layers = inputs.layers
         if after_training:
             layers, note = _final_layers(book, layout, inputs, description.original, alignment)
@@ -82,7 +82,7 @@ def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built:
     if built is not None and _record_inputs_as_built(inputs, built):
         numbers = compute(layout.spec, built)
         if _formulas_as_built(book, layout, numbers, alignment):
-            note = "parameters after training: the reference trainer's (the inputs and formulas are as built)"
+            note = "parameters after training: the reference trainer's (the record's inputs and formulas are as built)"
             return numbers.record.trace[-1].after, note
     from sheetnet.engines.embedded import recalculate
 

@@ -68,6 +68,7 @@ class AuditReport:
 
     def to_dict(self) -> dict:
         out = {"file": str(self.path), "reference": self.reference, "finding_count": self.total, "notes": self.notes,
+               "listed_at_most": LIST_LIMIT,
                "counts": {k: self.counts.get(k, 0) for k in KINDS}, "first_diverging_step": self.first_diverging_step}
         out.update({kind: [f.to_dict() for f in self.of(kind)] for kind in KINDS})
         return out

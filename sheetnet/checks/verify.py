@@ -16,7 +16,7 @@ from pathlib import Path
 
 from sheetnet.book import plan
 from sheetnet.book.addresses import Cell, a1, quote_sheet
-from sheetnet.book.canonical import normalize_formula
+from sheetnet.book.canonical import same_formula
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
@@ -227,9 +227,9 @@ def _formula_difference(sheet: str, pos, expected: str, found: str | None, cells
         value = None if cells is None else cells.values.get(pos)
         note = "a constant where a formula belongs" if value is not None else "the formula is missing"
         return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": plain(value), "note": note}
-    if normalize_formula(found) != normalize_formula(expected):
+    if not same_formula(found, expected, sheet):
         return {"sheet": sheet, "cell": a1(*pos), "expected": expected, "found": "=" + found, "note": "formula changed"}
-    return None  # written differently (spaces, case, number spelling), the same formula
+    return None  # written differently (spaces, case, number spelling, own sheet named), the same formula
 
 
 def _check_value(report: Comparison, sheet: str, pos, value, expected) -> None:
@@ -394,7 +394,7 @@ def _followable(alignment: Alignment | None) -> Alignment | None:
     """The alignment, when verify can compare through it; else why not, and where to look."""
     if alignment is not None and (alignment.missing or alignment.reordered):
         what = f"sheet(s) {', '.join(alignment.missing)} missing" if alignment.missing else \
-            f"rows of {', '.join(alignment.reordered)} were reordered (sorted), which changes what the training " \
-            "record reads"
+            f"rows of {', '.join(alignment.reordered)} were reordered (sorted), and references from outside " \
+            "the sorted rows still point at the old positions"
         raise WorkbookFormatError(f"{what}; run 'sheetnet audit' to see every change and what it did")
     return alignment

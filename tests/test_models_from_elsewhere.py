@@ -1,0 +1,130 @@
+"""Workbooks of models trained elsewhere or earlier: the model's own settings, a target column of
+another name, data with no target at all, and public data sets of several shapes with default flags."""
+
+from __future__ import annotations
+
+import json
+import re
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pytest
+
+import sheetnet
+from tests.conftest import write_csv
+
+
+def _guide(path) -> dict[str, str]:
+    return {row[0]: row[1] for row in openpyxl.load_workbook(path)["Guide"].iter_rows(values_only=True) if row[0]}
+
+
+def _cells(out: str) -> int:
+    return int(re.search(r"([\d,]+) formula cells", out).group(1).replace(",", ""))
+
+
+@pytest.fixture(scope="module")
+def wine(tmp_path_factory):
+    """scikit-learn's copy of the UCI wine data (Forina et al.; Aeberhard, Coomans & de Vel 1992): 178 rows,
+    13 inputs, 3 classes."""
+    from sklearn.datasets import load_wine
+
+    folder = tmp_path_factory.mktemp("wine")
+    frame = load_wine(as_frame=True).frame
+    frame.to_csv(folder / "wine.csv", index=False)
+    return folder
+
+
+def test_build_model_keeps_the_settings_train_stored(wine, tmp_path, run_cli):
+    data = wine / "wine.csv"
+    assert run_cli("train", data, "--target", "target", "--epochs", "200", "--batch-size", "8", "--lr", "0.5",
+                   "--momentum", "0.5", "--quiet", "-o", tmp_path / "m.json")[0] == 0
+    code, out, err = run_cli("build", "--model", tmp_path / "m.json", data, "--quiet", "-o", tmp_path / "b.xlsx")
+    assert code == 0, err
+    assert "continues from the model's weights with the model's stored settings" in out
+    guide = _guide(tmp_path / "b.xlsx")
+    assert "learning_rate=0.5, epochs=200, batch_size=8" in guide["training settings"]
+    assert guide["record"].startswith("epochs 1-") and "of 200" in guide["record"]
+    setup = openpyxl.load_workbook(tmp_path / "b.xlsx")["Training setup"]
+    assert (setup["B3"].value, setup["B4"].value) == (0.5, 0.5)  # learning rate, momentum
+    code, out, _ = run_cli("build", "--model", tmp_path / "m.json", data, "--lr", "0.05", "--quiet",
+                           "-o", tmp_path / "c.xlsx")
+    assert code == 0 and "except --lr" in out
+    assert openpyxl.load_workbook(tmp_path / "c.xlsx")["Training setup"]["B3"].value == 0.05
+    assert run_cli("verify", tmp_path / "b.xlsx", "--quiet")[0] == 0
+
+
+def test_a_scikit_learn_model_with_another_target_name_or_none(wine, tmp_path, run_cli):
+    from sklearn.neural_network import MLPClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    frame = pd.read_csv(wine / "wine.csv")
+    x, y = frame.drop(columns="target"), frame["target"]
+    fitted = make_pipeline(StandardScaler(), MLPClassifier((5,), max_iter=400, random_state=0)).fit(x, y)
+    model = sheetnet.from_sklearn(fitted)
+    assert model.inputs == tuple(x.columns) and model.target == ("y",)  # the names it was fitted with
+    model.save(tmp_path / "sk.json")
+    renamed = sheetnet.from_sklearn(fitted, target="cultivar")
+    assert renamed.target == ("cultivar",)
+    with pytest.raises(sheetnet.SheetNetError, match="inputs"):
+        sheetnet.from_sklearn(fitted, inputs=["a", "b"])
+
+    code, out, err = run_cli("build", "--model", tmp_path / "sk.json", wine / "wine.csv", "--quiet",
+                             "-o", tmp_path / "none.xlsx")
+    assert code == 0, err
+    assert "no target column 'y'" in out and "--target" in out
+    assert openpyxl.load_workbook(tmp_path / "none.xlsx").sheetnames == [
+        "Guide", "Parameters", "Calculator", "Scoring", "sheetnet_layout"]
+    code, out, err = run_cli("build", "--model", tmp_path / "sk.json", wine / "wine.csv", "--target", "target",
+                             "--epochs", "3", "--quiet", "-o", tmp_path / "mapped.xlsx")
+    assert code == 0, err
+    assert "Training record" in openpyxl.load_workbook(tmp_path / "mapped.xlsx").sheetnames
+    x.to_csv(tmp_path / "new_cases.csv", index=False)
+    code, out, err = run_cli("build", "--model", tmp_path / "sk.json", tmp_path / "new_cases.csv", "--quiet",
+                             "-o", tmp_path / "new.xlsx")
+    assert code == 0, err
+    for book in ("none.xlsx", "mapped.xlsx", "new.xlsx"):
+        assert run_cli("verify", tmp_path / book, "--quiet")[0] == 0, book
+    # The workbook scores as scikit-learn predicts (scikit-learn as the outside oracle).
+    scored = openpyxl.load_workbook(tmp_path / "new.xlsx", data_only=True)["Scoring"]
+    header_row = next(r for r in scored.iter_rows(values_only=True) if r and r[0] == "case")
+    column = header_row.index("predicted")
+    start = next(r[0].row for r in scored.iter_rows(min_col=1, max_col=1) if r[0].value == "case")
+    predicted = [scored.cell(row=start + 1 + i, column=column + 1).value for i in range(len(x))]
+    assert [str(int(float(p))) for p in predicted] == [str(v) for v in fitted.predict(x)]
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("loader, target", [("load_digits", "target"), ("load_breast_cancer", "target"),
+                                            ("load_diabetes", "target")],
+                         ids=["digits 1797x64 10 classes", "breast cancer 569x30", "diabetes regression 442x10"])
+def test_public_data_sets_build_with_default_flags(loader, target, tmp_path, run_cli):
+    """scikit-learn's bundled copies of public data sets (UCI optical digits; Wisconsin diagnostic breast
+    cancer; Efron et al. 2004 diabetes): default flags give a workbook under the cap that verifies."""
+    import sklearn.datasets
+
+    frame = getattr(sklearn.datasets, loader)(as_frame=True).frame
+    data = tmp_path / "d.csv"
+    frame.to_csv(data, index=False)
+    code, out, err = run_cli("build", data, "--target", target, "--quiet", "-o", tmp_path / "b.xlsx")
+    assert code == 0, err
+    assert _cells(out) <= 500_000
+    assert "metrics over all data (the trainer, training rows)" in _guide(tmp_path / "b.xlsx")
+    assert run_cli("verify", tmp_path / "b.xlsx", "--quiet")[0] == 0
+
+
+def test_a_long_table_gets_a_stated_scoring_sample(tmp_path, run_cli):
+    rng = np.random.default_rng(3)
+    x = rng.normal(size=(30_000, 3)).round(4)
+    rows = [[*r, int(r[0] + r[1] > 0)] for r in x.tolist()]
+    data = write_csv(tmp_path / "long.csv", ["a", "b", "c", "y"], rows)
+    code, out, err = run_cli("build", data, "--target", "y", "--epochs", "2", "--max-cells", "60000", "--quiet",
+                             "-o", tmp_path / "b.xlsx")
+    assert code == 0, err
+    held = int(re.search(r"the Scoring sheet holds ([\d,]+) of the 30,000 cases", out).group(1).replace(",", ""))
+    assert 0 < held < 30_000 and _cells(out) <= 60_000
+    description = json.loads("".join(c.value for (c,) in openpyxl.load_workbook(tmp_path / "b.xlsx")[
+        "sheetnet_layout"].iter_rows(min_row=2, max_col=1) if c.value))
+    assert description["spec"]["n_cases"] == held
+    assert run_cli("verify", tmp_path / "b.xlsx", "--quiet")[0] == 0
