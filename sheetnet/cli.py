@@ -27,7 +27,6 @@ from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES, VERIFY_STAGES, si
 from sheetnet.demo import DEMO_FLAGS, demo_csv_text
 from sheetnet.errors import (
     CannotVerifyError,
-    DescriptionError,
     EvaluationError,
     SheetNetError,
     TrainingError,
@@ -480,10 +479,14 @@ def _write_json(path: Path, data: dict, force: bool) -> None:
 
 
 def _signature_note(path: Path, key: bytes | None, error: Exception) -> str:
-    """For a workbook that cannot be verified: whether its signature holds (with a key)."""
-    if key is None or not isinstance(error, DescriptionError):
+    """For a workbook that cannot be verified: whether its signature holds (with a key), which says
+    whether what made it unverifiable happened after signing."""
+    if key is None:
         return ""
-    check = signature_of(path, key)
+    try:
+        check = signature_of(path, key)
+    except SheetNetError:
+        return "; the signature cannot be checked either (the file cannot be read)"
     return f"; signature {check.status}: {check.detail}"
 
 

@@ -9,6 +9,8 @@ from collections.abc import Callable
 from pathlib import Path
 from xml.sax.saxutils import escape
 
+from sheetnet.book.describe import LAYOUT_TITLE
+
 LAYOUT_SHEET_NAME = "sheetnet_layout"
 CHUNK = 30_000
 
@@ -42,7 +44,8 @@ def description_sheet_xml(text: str) -> str:
                    for n, chunk in enumerate(chunks))
     return ('<?xml version="1.0" encoding="UTF-8" standalone="yes"?>'
             '<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"><sheetData>'
-            '<row r="1"><c r="A1" t="inlineStr"><is><t>layout</t></is></c></row>' + rows + "</sheetData></worksheet>")
+            f'<row r="1"><c r="A1" t="inlineStr"><is><t>{escape(LAYOUT_TITLE)}</t></is></c></row>' + rows +
+            "</sheetData></worksheet>")
 
 
 def write_description_text(book: Path, out: Path, text: str) -> Path:

@@ -125,7 +125,7 @@ def test_bad_workbooks_are_refused(case, command, assets, tmp_path, capsys):
         return
     if command == "audit" and case == "damaged layout":  # a damaged description is the audit's finding
         code, out = main(["audit", str(path)]), capsys.readouterr().out
-        assert code == 3 and "Layout description (1)" in out and "not valid JSON" in out, out
+        assert code == 3 and "Layout description (" in out and "not valid JSON" in out, out
         return
     out = tmp_path / "out.json"
     args = {"verify": ["verify", path, "--json", out], "audit": ["audit", path, "--json", out],

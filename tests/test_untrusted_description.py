@@ -354,3 +354,85 @@ def test_signature_survives_saving_elsewhere_and_breaks_on_an_edit(signed, tmp_p
                                  [{"op": "value", "sheet": "Parameters", "cell": "B12", "value": 0.375}])
     code, out, _ = run_cli("verify", edited, "--key", signed["key"])
     assert code == 1 and "signature: BROKEN" in out and "on sheet(s) Parameters" in out, out
+
+
+def _with_layout_xml(book: Path, out: Path, change) -> Path:
+    """A copy whose layout sheet's XML is changed by ``change(text) -> text``."""
+    import zipfile
+
+    with zipfile.ZipFile(book) as src, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for item in src.infolist():
+            data = src.read(item.filename)
+            if item.filename == "xl/worksheets/sheet8.xml":
+                data = change(data.decode()).encode()
+            dst.writestr(item, data)
+    return out
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda x: x.replace("</sheetData>", '<row r="90"><c r="B90"><v>12345</v></c></row></sheetData>'),
+     "cell(s) besides the description"),
+    (lambda x: x.replace("do not edit", "edit freely"), "title was changed"),
+    (lambda x: x.replace("</sheetData>", "</sheetDat>"), "cannot be read"),
+], ids=["extra cell", "title", "not well-formed"])
+def test_the_layout_sheet_holds_only_the_description(change, words, book, tmp_path, run_cli):
+    altered = _with_layout_xml(book, tmp_path / "a.xlsx", change)
+    code, out, err = run_cli("audit", altered, "--annotate", tmp_path / "marked.xlsx")
+    assert code == 3 and words in out, out + err
+    assert (tmp_path / "marked.xlsx").exists()
+
+
+def test_signature_breaks_on_an_added_sheet_or_layout_cell(signed, tmp_path, run_cli):
+    import openpyxl
+
+    book = openpyxl.load_workbook(signed["book"])
+    book.create_sheet("Notes")["A1"] = "a reviewer's note"
+    book.save(tmp_path / "added.xlsx")
+    code, out, _ = run_cli("verify", tmp_path / "added.xlsx", "--key", signed["key"])
+    assert code == 1 and "sheet(s) added after signing: Notes" in out
+    book = openpyxl.load_workbook(signed["book"])
+    book["sheetnet_layout"]["B5"] = 1
+    book.save(tmp_path / "cell.xlsx")
+    code, out, _ = run_cli("verify", tmp_path / "cell.xlsx", "--key", signed["key"])
+    assert code == 1 and "the layout sheet holds more than the signed description" in out
+
+
+def test_digests_without_a_signature_and_a_foreign_tool_are_found(signed, tmp_path):
+    def unsigned(data):
+        data.pop("signature")
+        return data
+
+    report = audit(alter_description(signed["book"], tmp_path / "a.xlsx", unsigned))
+    assert [f.cell for f in report.of("description")] == ["fingerprints"]
+
+    def tool(data):
+        data["tool"] = "some other program"
+        return data
+
+    report = audit(alter_description(signed["book"], tmp_path / "b.xlsx", tool))
+    assert [f.cell for f in report.of("description")] == ["tool"]
+
+
+def test_extract_refuses_a_description_its_formulas_do_not_follow(book, tmp_path, run_cli):
+    def tanh(data):
+        data["spec"]["activations"][0] = {"name": "tanh"}
+        return data
+
+    code, _out, err = run_cli("extract", alter_description(book, tmp_path / "a.xlsx", tanh), "-o", tmp_path / "m.json")
+    assert code == 1 and "Calculator's formulas do not compute what the layout description says" in err
+    assert not (tmp_path / "m.json").exists()
+
+
+def test_a_model_written_without_data_checks_cleanly(tmp_path, run_cli):
+    model = {"format": "sheetnet-model", "version": 1, "inputs": ["u", "v"], "outputs": ["a", "b", "c"],
+             "task": "multiclass", "loss": "cross-entropy", "classes": ["a", "b", "c"],
+             "layers": [{"weights": [[0.5, -1.0], [0.25, 0.75]], "bias": [0.1, -0.1], "activation": "tanh"},
+                        {"weights": [[1.0, 0.0], [0.0, 1.0], [0.5, 0.5]], "bias": [0, 0, 0], "activation": "softmax"}]}
+    (tmp_path / "m.json").write_text(json.dumps(model))
+    assert run_cli("build", "--model", tmp_path / "m.json", "-o", tmp_path / "b.xlsx")[0] == 0
+    assert run_cli("verify", tmp_path / "b.xlsx")[0] == 0
+    assert run_cli("audit", tmp_path / "b.xlsx")[0] == 0
+    assert run_cli("extract", tmp_path / "b.xlsx", "-o", tmp_path / "back.json")[0] == 0
+    assert run_cli("report", tmp_path / "b.xlsx", "-o", tmp_path / "r.html")[0] == 0
+    back = json.loads((tmp_path / "back.json").read_text())
+    assert [layer["weights"] for layer in back["layers"]] == [layer["weights"] for layer in model["layers"]]

@@ -18,6 +18,8 @@ from sheetnet.version import __version__
 FORMAT = "sheetnet-layout"
 VERSION = 1
 SIGNATURE_ALGORITHM = "HMAC-SHA256"
+#: The first cell of the hidden layout sheet; the description follows in column A from row 2.
+LAYOUT_TITLE = "sheetnet layout description (JSON, split over the cells below): do not edit"
 
 
 class Fingerprints:

@@ -28,6 +28,7 @@ from sheetnet.book.describe import description_text
 from sheetnet.book.layout import LAYOUT, BookLayout, build_layout
 from sheetnet.book.read import input_cells
 from sheetnet.book.schema import read_original_inputs, read_spec
+from sheetnet.book.untrusted import layout_sheet_problems
 from sheetnet.book.xlsxread import Workbook
 from sheetnet.errors import UsageError
 
@@ -200,4 +201,9 @@ def _changed_since_signing(book: Workbook, data: dict) -> list[str]:
     what = [f"cells changed after signing on sheet(s) {', '.join(sorted(changed))}"] if changed else []
     if names != prints.get("names"):
         what.append("defined names changed after signing")
+    added = [sheet for sheet in book.sheets if sheet not in data.get("sheets", [])]
+    if added:
+        what.append(f"sheet(s) added after signing: {', '.join(added)}")
+    if LAYOUT in book.sheets and layout_sheet_problems(book, LAYOUT):
+        what.append("the layout sheet holds more than the signed description, or was changed")
     return what

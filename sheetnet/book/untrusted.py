@@ -22,12 +22,13 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
 from sheetnet.book import layout as L
 from sheetnet.book.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
-from sheetnet.book.describe import FORMAT, SIGNATURE_ALGORITHM, VERSION
+from sheetnet.book.describe import FORMAT, LAYOUT_TITLE, SIGNATURE_ALGORITHM, VERSION
 from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
 from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
@@ -89,16 +90,12 @@ def read_returned_workbook(path, allow_macros: bool = False) -> Workbook:
     return read_workbook(path, allow_macros=allow_macros, cell_limits={LAYOUT: MAX_LAYOUT_CELLS})
 
 
-#: The first cell of the layout sheet (how a renamed layout sheet is recognised).
-LAYOUT_TITLE = "sheetnet layout description"
-
-
 def layout_sheet_name(book: Workbook) -> str | None:
     """The layout sheet: under its name, or renamed (recognised by its first cell)."""
     if LAYOUT in book.sheets:
         return LAYOUT
     return next((name for name, sheet in book.sheets.items()
-                 if str(sheet.values.get((0, 0), "")).startswith(LAYOUT_TITLE)), None)
+                 if str(sheet.values.get((0, 0), "")).startswith(LAYOUT_TITLE[:27])), None)
 
 
 def looks_like_sheetnet(book: Workbook) -> bool:
@@ -113,6 +110,28 @@ def description_text(book: Workbook, sheet: str = LAYOUT) -> str:
     cells = book.sheets[sheet].values
     rows = sorted(row for (row, col), value in cells.items() if col == 0 and row >= 1 and isinstance(value, str))
     return "".join(cells[(row, 0)] for row in rows)
+
+
+def layout_sheet_problems(book: Workbook, sheet: str) -> list[Problem]:
+    """The layout sheet holds its title, the description's chunks in column A from row 2, and nothing
+    else, and stays hidden: anything more was put there by hand."""
+    check = Checker("layout sheet")  # not needed to verify: the description itself may still be sound
+    cells = book.sheets[sheet]
+    if cells.state != "hidden":
+        check.add(f"sheet {sheet!r}", f"the layout sheet is {cells.state}; build hides it")
+    if cells.values.get((0, 0)) != LAYOUT_TITLE:
+        check.add(f"{sheet}!A1", "the layout sheet's title was changed")
+    chunks = sorted(row for (row, col), value in cells.values.items() if col == 0 and row >= 1)
+    others = [(row, col) for (row, col) in cells.values if col != 0]
+    if cells.formulas:
+        row, col = min(cells.formulas)
+        check.add(f"{sheet}!{a1(row, col)}", "a formula on the layout sheet (the description is text)")
+    if others:
+        check.add(f"{sheet}!{a1(*min(others))}", f"{len(others)} cell(s) besides the description on the layout "
+                                                  "sheet")
+    if chunks != list(range(1, len(chunks) + 1)) or any(not isinstance(cells.values[(r, 0)], str) for r in chunks):
+        check.add(f"sheet {sheet!r}", "the description's cells are not the text cells A2, A3, ... one after another")
+    return check.problems
 
 
 def read_description(book: Workbook) -> Description:
@@ -135,7 +154,7 @@ def read_description(book: Workbook) -> Description:
         return Description(None, None, None, [*renamed, Problem("format", "", f"the layout sheet {what}")])
     text = description_text(book, sheet)
     data, problems = _parse(text, _size_cap(book))
-    problems = renamed + problems
+    problems = renamed + layout_sheet_problems(book, sheet) + problems
     if data is None:
         return Description(None, None, None, problems)
     spec, spec_problems = read_spec(data["spec"])
@@ -151,7 +170,7 @@ def read_description(book: Workbook) -> Description:
         problems += _derived_parts(data, layout)
         original, input_problems = read_original_inputs(data["inputs"], layout.spec)
         problems += input_problems
-    problems += _fingerprints(data.get("fingerprints"), data.get("sheets"))
+    problems += _fingerprints(data.get("fingerprints"), data.get("sheets"), data.get("signature") is not None)
     problems += _signature(data.get("signature"))
     return Description(data, layout, original, problems)
 
@@ -189,7 +208,9 @@ def _parse(text: str, cap: int) -> tuple[dict | None, list[Problem]]:
         check.add("format", f"expected {FORMAT!r}, found {raw['format']!r:.40}")
     if raw["version"] != VERSION:
         check.add("version", f"version {raw['version']!r:.20} is not supported (this sheetnet reads {VERSION})")
-    check.text(raw["tool"], "tool", 200)
+    tool = check.text(raw["tool"], "tool", 200)
+    if tool is not None and not re.fullmatch(r"sheetnet \d+\.\d+\.\d+", tool):
+        check.add("tool", f"{tool[:40]!r} is not the name of a sheetnet version")
     return (None if check.problems else raw), check.problems
 
 
@@ -341,11 +362,14 @@ def _block_text(block: Any) -> str:
         return repr(block)[:60]
 
 
-def _fingerprints(value: Any, sheets: Any) -> list[Problem]:
+def _fingerprints(value: Any, sheets: Any, signed: bool) -> list[Problem]:
     check = Checker("fingerprints")
     raw = check.obj(value, "fingerprints", ("formulas", "inputs"), ("cells", "names"))
     if raw is None:
         return check.problems
+    if signed != ("cells" in raw) or signed != ("names" in raw):
+        check.add("fingerprints", "cell and name digests come with a signature, and only with one (a signature "
+                                  "was removed, or digests were added)")
     known = set(sheets) if isinstance(sheets, list) and all(isinstance(s, str) for s in sheets) else set()
     for kind in ("formulas", "inputs", "cells"):
         digests = check.obj(raw.get(kind, {}), f"fingerprints.{kind}", (), tuple(known))

@@ -21,7 +21,7 @@ from xlsxwriter.worksheet import Worksheet
 from sheetnet.book import layout as L
 from sheetnet.book import plan
 from sheetnet.book.addresses import a1, defined_name_target, range_ref
-from sheetnet.book.describe import Fingerprints
+from sheetnet.book.describe import LAYOUT_TITLE, Fingerprints
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import Numbers
@@ -218,7 +218,7 @@ def _epochs_chart(book, sheet: Worksheet, layout: BookLayout) -> None:
 def _layout_sheet(book, description: str) -> None:
     sheet = book.add_worksheet(L.LAYOUT, worksheet_class=_Sheet)
     chunks = [description[i:i + LAYOUT_CHUNK] for i in range(0, len(description), LAYOUT_CHUNK)] or [""]
-    sheet.write_string(0, 0, "sheetnet layout description (JSON, split over the cells below): do not edit")
+    sheet.write_string(0, 0, LAYOUT_TITLE)
     for n, chunk in enumerate(chunks):
         sheet.write_string(n + 1, 0, chunk)
     sheet.hide()

@@ -236,10 +236,10 @@ def _value(kind: str, raw: str | None, inline: str | None, strings: list[str]) -
         return None
     raw = _unescape(raw)
     if kind == "s":
-        index = int(raw)
+        index = int(raw) if raw.isdigit() and len(raw) < 12 else -1
         if not 0 <= index < len(strings):
-            raise WorkbookFormatError(f"a cell refers to shared string {index:,}, which the workbook does not have "
-                                      f"({len(strings):,} strings)")
+            raise WorkbookFormatError(f"a cell refers to shared string {raw[:15]!r}, which the workbook does not "
+                                      f"have ({len(strings):,} strings)")
         return strings[index]
     if kind in ("str", "e") or (kind == "" and raw in _ERRORS):
         return CellError(raw) if kind == "e" or raw in _ERRORS else raw
@@ -397,7 +397,16 @@ def read_workbook(path: str | Path, sheets: list[str] | None = None, allow_macro
             text = str(exc)
             raise WorkbookFormatError(text if text.startswith(str(path)) else f"{path}: {text}") from None
         except (KeyError, ValueError, IndexError, UnicodeDecodeError) as exc:
-            raise WorkbookFormatError(f"{path}: damaged workbook ({type(exc).__name__}: {exc})") from None
+            raise WorkbookFormatError(f"{path}: damaged workbook ({_damage(exc)})") from None
+
+
+def _damage(exc: Exception) -> str:
+    """What a low-level failure says about the file, in words (not Python's class names)."""
+    if isinstance(exc, UnicodeDecodeError):
+        return "a part is not UTF-8 text"
+    if isinstance(exc, KeyError):
+        return f"a part or entry it refers to is missing ({str(exc)[:80]})"
+    return f"a value it holds cannot be read ({str(exc)[:80]})"
 
 
 def _rels(zf: zipfile.ZipFile, name: str) -> dict[str, str]:
@@ -440,10 +449,11 @@ def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None, limits: dic
             continue
         try:
             sheets[name] = _read_sheet(zf, target, name, node.get("state", "visible"), strings, limits.get(name))
-        except WorkbookFormatError as exc:
+        except (WorkbookFormatError, ValueError, IndexError, KeyError) as exc:
             if name not in limits:
                 raise
-            sheets[name] = SheetCells(name=name, state=node.get("state", "visible"), unreadable=str(exc))
+            why = str(exc) if isinstance(exc, WorkbookFormatError) else _damage(exc)
+            sheets[name] = SheetCells(name=name, state=node.get("state", "visible"), unreadable=why)
     global_names, local = {}, []
     for node in book.iter(f"{{{NS_MAIN}}}definedName"):
         if node.get("localSheetId") is not None:
@@ -458,10 +468,15 @@ def _read(zf: zipfile.ZipFile, path: Path, wanted: list[str] | None, limits: dic
 
 def _read_sheet(zf: zipfile.ZipFile, target: str, name: str, state: str, strings: list[str],
                 limit: int | None) -> SheetCells:
-    data = _text(zf, target)
+    try:
+        data = _text(zf, target)
+    except UnicodeDecodeError:
+        raise WorkbookFormatError(f"part {target} is not UTF-8 text") from None
     count = data.count("<c ") + data.count("<c>")
     if limit is not None and count > limit:
         return SheetCells(name=name, state=state, oversized=count)
+    if limit is not None:  # a capped sheet is small: it must be well-formed XML, as applications require
+        _xml(zf, target)
     sheet = read_sheet_xml(name, state, data, strings)
     _sheet_structure(sheet, data)
     return sheet

@@ -257,17 +257,21 @@ def alignment_for(book: Workbook, layout: BookLayout, original: BookInputs | Non
     if looks_unmoved(book, layout):
         return None
     inputs = original if original is not None else read_inputs_checked(book, layout)[0]
-    # The anchors are texts outside the tables' bodies, which do not depend on how long the training
-    # record is: a record of one (the widest) step gives them all without replaying the whole run.
+    try:
+        return align(book, layout, light_entries(layout, inputs))
+    except SheetNetError as exc:
+        raise WorkbookFormatError(f"the workbook was restructured and cannot be re-aligned ({exc})") from None
+
+
+def light_entries(layout: BookLayout, inputs: BookInputs) -> list[tuple[str, plan.Entry]]:
+    """Every cell outside the training record's body, cheaply: texts and the formulas of the other
+    sheets do not depend on how long the record is, so a record of one (the widest) step gives them
+    without replaying the whole run."""
     spec = layout.spec
     if spec.record is not None:
         longest = max(spec.record.steps, key=len)  # the widest step decides the record's columns
         spec = replace(spec, record=replace(spec.record, steps=(longest,), epochs=(1,)))
-    try:
-        numbers = compute(spec, inputs)
-    except SheetNetError as exc:
-        raise WorkbookFormatError(f"the workbook was restructured and cannot be re-aligned ({exc})") from None
-    return align(book, layout, plan.all_entries(build_layout(spec), numbers))
+    return list(plan.all_entries(build_layout(spec), compute(spec, inputs)))
 
 
 def looks_unmoved(book: Workbook, layout: BookLayout) -> bool:

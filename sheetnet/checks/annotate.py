@@ -4,14 +4,17 @@ and listed on a findings sheet that links to each cell. The input is never modif
 from __future__ import annotations
 
 import re
+import tempfile
 import zipfile
 from pathlib import Path
 from xml.sax.saxutils import escape
 
 from sheetnet.book.addresses import parse_a1, quote_sheet
+from sheetnet.book.layout import LAYOUT
 from sheetnet.book.untrusted import read_returned_workbook
 from sheetnet.book.xlsxread import CellError, Workbook
 from sheetnet.checks.findings import AuditReport
+from sheetnet.errors import WorkbookFormatError
 from sheetnet.files import write_atomic
 
 FILLS = {"description": "F4B6B6", "signature": "F4B6B6", "structural": "F4B6B6", "formula_edits": "F8CBAD",
@@ -27,7 +30,13 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
     from openpyxl.styles import Font, PatternFill
     from openpyxl.worksheet.hyperlink import Hyperlink
 
-    book = openpyxl.load_workbook(source)
+    cached = read_returned_workbook(source, allow_macros=True)
+    with tempfile.TemporaryDirectory(prefix="sheetnet-annotate-") as work:
+        try:
+            book = openpyxl.load_workbook(_without_a_damaged_layout(source, cached, Path(work)))
+        except Exception as exc:  # openpyxl raises many kinds on a file it cannot read
+            raise WorkbookFormatError(f"{source}: no annotated copy: the file cannot be opened for writing one "
+                                      f"({type(exc).__name__})") from None
     sheet = book.create_sheet(FINDINGS_SHEET, 0)
     sheet.append(["kind", "where", "note", "expected", "found"])
     for cell in sheet[1]:
@@ -56,13 +65,41 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
             text += f"\nfound: {_text(finding.found)}"
         lines.append(text)
         target.comment = Comment("\n\n".join(lines)[:2000], "sheetnet audit", width=320, height=140)
-    cached = read_returned_workbook(source, allow_macros=True)
-
     def save(tmp: Path) -> None:
         book.save(tmp)
         keep_saved_values(tmp, [ws.title for ws in book.worksheets], cached)
 
     return write_atomic(Path(out), save, force=force)
+
+
+def _without_a_damaged_layout(source: Path, book: Workbook, work: Path) -> Path:
+    """The source, or a copy whose layout sheet is emptied when it is too large or damaged to read (it
+    was reported; opening it whole would cost what the caps on it prevent)."""
+    layout = book.sheets.get(LAYOUT)
+    if layout is None or not (layout.oversized or layout.oversized_bytes or layout.unreadable):
+        return source
+    part = _sheet_part(source, LAYOUT)
+    staged = work / "staged.xlsx"
+    with zipfile.ZipFile(source) as src, zipfile.ZipFile(staged, "w", zipfile.ZIP_DEFLATED) as dst:
+        for item in src.infolist():
+            dst.writestr(item, _EMPTIED_LAYOUT if item.filename == part else src.read(item.filename))
+    return staged
+
+
+_EMPTIED_LAYOUT = ('<?xml version="1.0" encoding="UTF-8" standalone="yes"?><worksheet xmlns="http://schemas.'
+                   'openxmlformats.org/spreadsheetml/2006/main"><sheetData><row r="1"><c r="A1" t="inlineStr"><is>'
+                   '<t>(the layout sheet was left out of this copy: too large or damaged to read; see the audit)</t>'
+                   '</is></c></row></sheetData></worksheet>')
+
+
+def _sheet_part(source: Path, name: str) -> str:
+    """The worksheet part of a sheet, through the workbook and its relationships."""
+    with zipfile.ZipFile(source) as zf:
+        workbook = zf.read("xl/workbook.xml").decode("utf-8", "replace")
+        rels = zf.read("xl/_rels/workbook.xml.rels").decode("utf-8", "replace")
+    rid = re.search(rf'<sheet [^>]*name="{re.escape(name)}"[^>]*r:id="([^"]+)"', workbook)
+    target = rid and re.search(rf'<Relationship [^>]*Id="{rid.group(1)}"[^>]*Target="([^"]+)"', rels)
+    return ("xl/" + target.group(1).lstrip("/").removeprefix("xl/")) if target else ""
 
 
 _FORMULA_CELL = re.compile(r'<c r="([A-Z]+[0-9]+)"([^>]*)><f>([^<]*)</f><v */></c>')

@@ -227,16 +227,24 @@ def check_guide(report: AuditReport, book: Workbook, layout: BookLayout, alignme
     if m is None:
         return
     values = book.sheets[m.found].values
-    differing = []
+    differing, covered = [], set()
     for row, (_, left, right) in enumerate(guide_lines(layout, layout.defined_names())):
         for col, text in ((0, left), (1, right)):
             where = alignment.locate(Cell(L.GUIDE, row, col))
-            if where is not None and not same_value(values.get((where.row, where.col)), text or None):
+            if where is None:
+                continue
+            covered.add((where.row, where.col))
+            if not same_value(values.get((where.row, where.col)), text or None):
                 differing.append(a1(where.row, where.col))
     if differing:
         report.add(Finding(m.found, differing[0], "structural", None, None,
                            f"the Guide's text differs from what the layout description gives in {len(differing)} "
                            "cell(s): the Guide or the description was edited"))
+    added = sorted(pos for pos, value in values.items() if value not in (None, "") and pos not in covered
+                   and pos[0] not in m.inserted_rows and pos[1] not in m.inserted_cols)
+    for pos in added:
+        report.add(Finding(m.found, a1(*pos), "structural", None, plain(values[pos]),
+                           "content added where sheetnet wrote nothing"))
 
 
 def _check_added(report: AuditReport, book: Workbook, alignment: Alignment, covered: dict[str, set]) -> None:

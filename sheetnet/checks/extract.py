@@ -8,6 +8,7 @@ significant digits must not change a model); an edited one comes back as the fil
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import replace
 from pathlib import Path
 
@@ -15,14 +16,14 @@ import numpy as np
 
 from sheetnet.book import plan
 from sheetnet.book.addresses import Block, Cell, cell_name
-from sheetnet.book.canonical import SAME_NUMBER, normalize_formula
-from sheetnet.book.layout import BookLayout
+from sheetnet.book.canonical import SAME_NUMBER, same_formula
+from sheetnet.book.layout import CALCULATOR, BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import read_returned_workbook
 from sheetnet.book.xlsxread import Workbook
-from sheetnet.checks.align import Alignment, alignment_for
+from sheetnet.checks.align import Alignment, alignment_for, light_entries
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model
@@ -37,6 +38,7 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
         needed = ("parameters", "scaling", "training", "data") if after_training else ("parameters", "scaling")
         now = read_inputs(book, layout, locate=None if alignment is None else alignment.locate, groups=needed)
         inputs = as_built(now, description.original)
+        _calculator_follows_the_description(book, layout, alignment, inputs)
         note = "parameters read from the parameter blocks" + (" (where they moved)" if alignment else "")
         layers = inputs.layers
         if after_training:
@@ -45,6 +47,18 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
         training = {"extracted_from": Path(path).name, "after_training": after_training,
                     "provenance": dict(layout.spec.provenance)}
         return replace(model, training=training), note
+
+
+def _calculator_follows_the_description(book: Workbook, layout: BookLayout, alignment: Alignment | None,
+                                        inputs: BookInputs) -> None:
+    """The Calculator's formulas spell out the whole network (scaling, every layer, every activation):
+    a model file is only what the workbook computes when they are what the description says."""
+    calculator = [(sheet, entry) for sheet, entry in light_entries(layout, inputs) if sheet == CALCULATOR]
+    differing = list(_differing_formulas(book, calculator, alignment))
+    if differing:
+        raise WorkbookFormatError(f"{book.path}: the Calculator's formulas do not compute what the layout description "
+                                  f"says (first at {cell_name(differing[0])}, {len(differing)} in all): the "
+                                  "description or the formulas were edited; 'sheetnet audit' shows which")
 
 
 def _untouched(now: np.ndarray, built: np.ndarray) -> np.ndarray:
@@ -131,13 +145,17 @@ def _data_as_built(now, built) -> bool:
 
 def _formulas_as_built(book: Workbook, layout: BookLayout, numbers, alignment: Alignment | None) -> bool:
     """Every formula cell holds the formula build wrote (where the alignment puts it)."""
-    for sheet, entry in plan.all_entries(layout, numbers):
+    return next(_differing_formulas(book, plan.all_entries(layout, numbers), alignment), None) is None
+
+
+def _differing_formulas(book: Workbook, entries, alignment: Alignment | None) -> Iterator[Cell]:
+    """The cells (where the alignment puts them) whose formula is not the one build wrote there."""
+    for sheet, entry in entries:
         if entry.role != "formula":
             continue
         here = Cell(sheet, entry.row, entry.col)
         where = here if alignment is None else alignment.locate(here)
         expected = entry.content if alignment is None else alignment.translate(entry.content, here)
         found = None if where is None else book.sheets[where.sheet].formulas.get((where.row, where.col))
-        if found is None or (found != expected[1:] and normalize_formula(found) != normalize_formula(expected)):
-            return False
-    return True
+        if found is None or not same_formula(found, expected, where.sheet):
+            yield where or here
