@@ -20,8 +20,8 @@ def comparison_lines(c: Comparison) -> list[str]:
     lines += [f"  {sheet}: {count:,}" for sheet, count in c.per_sheet.items()]
     lines.append(f"largest absolute difference {c.max_abs_diff:.3g}" + (f" at {c.max_abs_where}" if c.max_abs_where
                                                                         else ""))
-    lines.append(f"largest relative difference {c.max_rel_diff:.3g}" + (f" at {c.max_rel_where}" if c.max_rel_where
-                                                                        else ""))
+    where = f" at {c.max_rel_where}" if c.max_rel_where else ""
+    lines.append(f"largest relative difference (values above 1) {c.max_rel_diff:.3g}{where}")
     if c.formula_differences:
         lines.append(f"{len(c.formula_differences)} cell(s) differ from what sheetnet writes: "
                      + _cells(c.formula_differences))
@@ -50,6 +50,8 @@ def verify_lines(report: VerifyReport) -> list[str]:
         lines += [f"  {change}" for change in report.realigned[:SHOWN]]
     for comparison in report.comparisons:
         lines += comparison_lines(comparison)
+    if report.unstable is not None:
+        lines += unstable_lines(report.unstable, report.comparisons[0].tolerance)
     if report.description_problems:
         lines.append(f"note: the layout description has {len(report.description_problems)} problem(s) in parts "
                      f"verification does not use (first: {report.description_problems[0]}); 'sheetnet audit' "
@@ -60,7 +62,9 @@ def verify_lines(report: VerifyReport) -> list[str]:
     signature = "" if report.signature is None or report.signature.holds else "; but the signature does not hold"
     if report.verdict == "ok":
         cells = report.comparisons[0].cells_compared
-        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer{signature}")
+        apart = "" if report.unstable is None else \
+            f" ({len(report.unstable.cells):,} of them checked one formula at a time, see the note)"
+        lines.append(f"verdict: OK: all {cells:,} formula cells agree with the reference trainer{apart}{signature}")
     elif report.verdict == "stale":
         stale = max(report.comparisons, key=lambda c: c.stale_count)
         sheets = ", ".join(f"{sheet} {count:,}" for sheet, count in stale.stale_per_sheet.items())
@@ -70,6 +74,12 @@ def verify_lines(report: VerifyReport) -> list[str]:
     else:
         lines.append("verdict: FAILED: the workbook does not reproduce the reference trainer (see above)")
     return lines
+
+
+def unstable_lines(unstable, tolerance: float) -> list[str]:
+    """Why some record values were not compared end to end, and what was checked instead."""
+    return [f"note: {unstable.summary(tolerance)}:",
+            f"  {unstable.outcome()}"]
 
 
 AUDIT_TITLES = {"description": "Layout description", "signature": "Signature", "structural": "Structure",

@@ -27,7 +27,8 @@ from sheetnet.book.xlsxread import Workbook
 from sheetnet.checks.align import Alignment, align
 from sheetnet.checks.audit_cells import check_formulas, check_guide, check_inputs, check_risks, check_structure
 from sheetnet.checks.findings import KINDS, AuditReport, Finding
-from sheetnet.checks.verify import by_cell, compare, engine_values, expected_formulas
+from sheetnet.checks.tolerance import DEFAULT_TOLERANCE
+from sheetnet.checks.verify import by_cell, compare_engines, engine_values, expected_formulas
 from sheetnet.errors import SheetNetError, WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
@@ -190,8 +191,15 @@ def _check_values(report: AuditReport, book: Workbook, layout: BookLayout, align
     except SheetNetError as exc:
         report.notes.append(f"recalculated values were not compared with the reference: {exc}")
         return
-    values = by_cell(book, engine_name, engine.result()[0])
-    comparison = compare(book, expected, values, engine_name, 1e-9)
+    values, general = engine.result()
+    results = [(engine_name, by_cell(book, engine_name, values), general)]
+    (comparison,), unstable = compare_engines(book, layout, alignment, expected, results, DEFAULT_TOLERANCE)
+    if unstable is not None:
+        report.notes.append(f"{unstable.summary(DEFAULT_TOLERANCE)}: {unstable.outcome()}")
+        for item in unstable.differing:
+            report.add(Finding(item["sheet"], item["cell"], "value_mismatches", item["expected"], item["found"],
+                               "differs from the reference trainer computed from the reference values it reads"))
+        report.count_unlisted("value_mismatches", unstable.differing_count - len(unstable.differing))
     for item in comparison.mismatches:
         report.add(Finding(item["sheet"], item["cell"], "value_mismatches", item["expected"], item["found"],
                            "recalculated value differs from the reference trainer on the file's inputs"))

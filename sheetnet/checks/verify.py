@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import itertools
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from sheetnet.book import plan
@@ -25,6 +25,8 @@ from sheetnet.book.untrusted import read_description, read_returned_workbook
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
 from sheetnet.checks.align import Alignment, alignment_for
 from sheetnet.checks.findings import LIST_LIMIT, plain
+from sheetnet.checks.stability import NUDGE, Unstable, check_one_at_a_time, unstable_cells
+from sheetnet.checks.tolerance import DEFAULT_TOLERANCE, agree
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
@@ -32,18 +34,6 @@ from sheetnet.parallel import Background
 ENGINES = ("embedded", "libreoffice", "formulas", "both", "all")
 #: What each --engine choice runs ("both" predates the third engine and keeps its meaning).
 ENGINE_SETS = {"both": ("embedded", "libreoffice"), "all": ("embedded", "libreoffice", "formulas")}
-DEFAULT_TOLERANCE = 1e-9
-
-def agree(found, expected, tolerance: float) -> bool:
-    if isinstance(expected, float | int) and not isinstance(expected, bool):
-        if isinstance(found, bool) or not isinstance(found, float | int):
-            return False
-        return abs(found - expected) <= tolerance * max(1.0, abs(expected))
-    if expected is None or expected == "":
-        return found is None or found == ""
-    return str(found) == str(expected)
-
-
 def _cell(sheet: str, pos: tuple[int, int]) -> str:
     return f"{quote_sheet(sheet)}!{a1(*pos)}"
 
@@ -69,6 +59,7 @@ class Comparison:
     stale_count: int = 0
     stale_per_sheet: dict[str, int] = field(default_factory=dict)
     general_path: list[str] = field(default_factory=list)
+    unstable_count: int = 0  # values rounding can move past the tolerance: checked one at a time instead
 
     @property
     def reproduces(self) -> bool:
@@ -92,18 +83,24 @@ class Comparison:
             "mismatches": self.mismatches, "mismatch_count": self.mismatch_count,
             "first_mismatch": self.first_mismatch, "formula_differences": self.formula_differences,
             "errors": self.errors, "stale_cached": self.stale_cached, "stale_count": self.stale_count,
-            "stale_per_sheet": self.stale_per_sheet,
+            "stale_per_sheet": self.stale_per_sheet, "unstable_count": self.unstable_count,
             "general_path_cells": self.general_path,
         }
 
 
-def expected_formulas(book: Workbook, layout: BookLayout, alignment: Alignment | None = None
+def expected_formulas(book: Workbook, layout: BookLayout, alignment: Alignment | None = None, nudge: float = 0.0
                       ) -> list[tuple[str, int, int, str, object]]:
     """(sheet, row, col, formula, reference value) of every formula cell sheetnet writes, for the
     inputs the file holds now (the reference trainer and scorer run here), where ``alignment`` says
-    each cell is now and with its references moved as the application moved them."""
+    each cell is now and with its references moved as the application moved them.
+
+    ``nudge`` scales the training record's starting parameters by (1 + nudge): how far the reference
+    moves then shows which of its values rounding can move (see checks.stability)."""
     moved = alignment is not None and not alignment.identity
     inputs = read_inputs(book, layout, locate=alignment.locate if moved else None)  # InvalidInputsError names a cell
+    if nudge:
+        inputs = replace(inputs, initial=tuple(replace(layer, weights=layer.weights * (1 + nudge),
+                                                       bias=layer.bias * (1 + nudge)) for layer in inputs.initial))
     numbers = compute(layout.spec, inputs)
     as_float = float
     if not moved:
@@ -171,13 +168,15 @@ def _prepare_sheet(prepared: Prepared, book: Workbook, sheet: str, items: list, 
 
 
 def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], engine_values: dict, engine: str,
-            tolerance: float, general: list | None = None, prepared: Prepared | None = None) -> Comparison:
-    """Every expected formula cell against the file's formula text and the engine's value."""
+            tolerance: float, general: list | None = None, prepared: Prepared | None = None,
+            unstable: frozenset = frozenset()) -> Comparison:
+    """Every expected formula cell against the file's formula text and the engine's value; a value
+    that differs in an ``unstable`` cell (sheet, row, col) is counted apart (checks.stability)."""
     prepared = prepared or prepare(book, expected, tolerance)
     report = Comparison(engine=engine, tolerance=tolerance)
     report.formula_differences = list(prepared.differences) + list(prepared.extra)
     for sheet, items, positions, constants in prepared.sheets:
-        _compare_sheet(report, sheet, items, positions, constants, engine_values.get(sheet, {}))
+        _compare_sheet(report, sheet, items, positions, constants, engine_values.get(sheet, {}), unstable)
     for sheet, pos, saved in prepared.stale_candidates:
         _check_stale(report, sheet, pos, saved, engine_values.get(sheet, {}).get(pos))
     report.general_path = [_cell(s, p) for s, p, _ in (general or [])][:LIST_LIMIT]
@@ -185,7 +184,7 @@ def compare(book: Workbook, expected: list[tuple[str, int, int, str, object]], e
 
 
 def _compare_sheet(report: Comparison, sheet: str, items: list, positions: list, constants: dict,
-                   values: dict) -> None:
+                   values: dict, unstable: frozenset) -> None:
     """The hot loop of a verification: one sheet's engine values against the reference."""
     tolerance = report.tolerance
     if not constants and list(values) == positions:  # the engine's values come in the expected order
@@ -196,12 +195,15 @@ def _compare_sheet(report: Comparison, sheet: str, items: list, positions: list,
         if type(value) is float and type(reference) is float:
             diff = value - reference if value > reference else reference - value
             scale = reference if reference > 0 else -reference
-            if diff > report.max_abs_diff or (scale and diff / scale > report.max_rel_diff):
-                _record_largest(report, sheet, (row, col), diff, scale)
             if diff > tolerance * (scale if scale > 1.0 else 1.0):
+                if unstable and (sheet, row, col) in unstable:
+                    report.unstable_count += 1
+                    continue
                 _mismatch(report, sheet, (row, col), value, reference)
+            if diff > report.max_abs_diff or (scale > 1.0 and diff / scale > report.max_rel_diff):
+                _record_largest(report, sheet, (row, col), diff, scale)
         else:
-            _check_value(report, sheet, (row, col), value, reference)
+            _check_value(report, sheet, (row, col), value, reference, unstable)
     report.cells_compared += len(items)
     report.per_sheet[sheet] = report.per_sheet.get(sheet, 0) + len(items)
 
@@ -209,7 +211,7 @@ def _compare_sheet(report: Comparison, sheet: str, items: list, positions: list,
 def _record_largest(report: Comparison, sheet: str, pos, diff: float, scale: float) -> None:
     if diff > report.max_abs_diff:
         report.max_abs_diff, report.max_abs_where = diff, _cell(sheet, pos)
-    if scale and diff / scale > report.max_rel_diff:
+    if scale > 1.0 and diff / scale > report.max_rel_diff:  # below 1 the tolerance is absolute
         report.max_rel_diff, report.max_rel_where = diff / scale, _cell(sheet, pos)
 
 
@@ -232,11 +234,15 @@ def _formula_difference(sheet: str, pos, expected: str, found: str | None, cells
     return None  # written differently (spaces, case, number spelling, own sheet named), the same formula
 
 
-def _check_value(report: Comparison, sheet: str, pos, value, expected) -> None:
+def _check_value(report: Comparison, sheet: str, pos, value, expected, unstable: frozenset) -> None:
     """The slow path of the value check: anything but two floats."""
     if isinstance(value, CellError):
         report.errors.append({"sheet": sheet, "cell": a1(*pos), "error": value.code})
-    if not agree(value, expected, report.tolerance):
+    if agree(value, expected, report.tolerance):
+        return
+    if unstable and (sheet, *pos) in unstable:
+        report.unstable_count += 1
+    else:
         _mismatch(report, sheet, pos, value, expected)
 
 
@@ -253,6 +259,26 @@ def _check_stale(report: Comparison, sheet: str, pos, cached, value) -> None:
     if len(report.stale_cached) < LIST_LIMIT:
         report.stale_cached.append({"sheet": sheet, "cell": a1(*pos), "cached": plain(cached),
                                     "recalculated": plain(value)})
+
+
+def compare_engines(book: Workbook, layout: BookLayout, alignment: Alignment | None, expected: list,
+                    results: list[tuple[str, dict, list]], tolerance: float, prepared: Prepared | None = None
+                    ) -> tuple[list[Comparison], Unstable | None]:
+    """Each engine's (name, values, general-path cells) against the reference. When values differ in a
+    training record, the cells that rounding alone moves past the tolerance are found and checked one
+    formula at a time instead (checks.stability), and the engines are compared again without them."""
+    prepared = prepared or prepare(book, expected, tolerance)
+    comparisons = [compare(book, expected, values, name, tolerance, general, prepared)
+                   for name, values, general in results]
+    if layout.record is None or not any(c.mismatch_count for c in comparisons):
+        return comparisons, None
+    nudged = [expected_formulas(book, layout, alignment, nudge=nudge) for nudge in (NUDGE, -NUDGE)]
+    unstable = unstable_cells(expected, nudged, tolerance)
+    if unstable is None:
+        return comparisons, None
+    check_one_at_a_time(book, expected, unstable, tolerance)
+    return [compare(book, expected, values, name, tolerance, general, prepared, unstable.cells)
+            for name, values, general in results], unstable
 
 
 def _extra_formulas(book: Workbook, expected: set) -> list[dict]:
@@ -299,12 +325,15 @@ class VerifyReport:
     description_problems: list[str] = field(default_factory=list)  # in parts verify does not need
     signature: SignatureCheck | None = None  # with a key only
     realigned: list[str] = field(default_factory=list)  # structural changes followed (rows inserted...)
+    unstable: Unstable | None = None  # record values rounding can move past the tolerance
 
     @property
     def verdict(self) -> str:
         """ok, stale (the formulas reproduce the reference but saved values are out of date) or
-        mismatch, the worst over the engines."""
+        mismatch, the worst over the engines and the one-at-a-time check of unstable cells."""
         verdicts = {c.verdict for c in self.comparisons}
+        if self.unstable is not None and not self.unstable.holds:
+            verdicts.add("mismatch")
         return next(v for v in ("mismatch", "stale", "ok") if v in verdicts or v == "ok")
 
     @property
@@ -314,7 +343,7 @@ class VerifyReport:
     def to_dict(self) -> dict:
         first = self.comparisons[0].to_dict()
         common = {"file": str(self.path), "verdict": self.verdict, "description_problems": self.description_problems,
-                  "realigned": self.realigned,
+                  "realigned": self.realigned, "unstable": None if self.unstable is None else self.unstable.to_dict(),
                   "signature": None if self.signature is None else self.signature.to_dict()}
         if len(self.comparisons) == 1:
             return {**first, **common, "ok": self.ok}
@@ -373,18 +402,18 @@ def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | No
         expected = expected_formulas(book, layout, alignment)
         prepared = prepare(book, expected, tolerance)  # while the engines still run
         progress(2)
-        comparisons = []
+        results = []
         for name, job in running:
             values, general = job.result()
-            values = by_cell(book, name, values)
+            results.append((name, by_cell(book, name, values), general))
             progress(3)
-            comparisons.append(compare(book, expected, values, name, tolerance, general, prepared))
+        comparisons, unstable = compare_engines(book, layout, alignment, expected, results, tolerance, prepared)
     finally:
         for _, job in running:
             job.stop()
     progress(VERIFY_STAGES)
     signed = None if key is None else check_signature(book, description.data, key)
-    return VerifyReport(path=Path(path), comparisons=comparisons,
+    return VerifyReport(path=Path(path), comparisons=comparisons, unstable=unstable,
                         description_problems=[str(p) for p in description.problems], signature=signed,
                         realigned=[] if alignment is None else [f"{c.sheet}!{c.cell}: {c.note}" if c.cell else c.note
                                                                 for c in alignment.changes])

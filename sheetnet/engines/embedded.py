@@ -409,6 +409,18 @@ class Engine:
         return lambda _row, _runs, s=target, rr=row_index, c=col: V(s, rr, c)
 
     def run(self) -> Recalculation:
+        order, general = self._load()
+        for store, key in self._first_pass(order):
+            if key not in store.out:
+                self._compute(store, key)
+        ordered = {name: [self.stores[name].out[r * WIDTH + c] for r, c in cells.formulas]
+                   for name, cells in self.book.sheets.items()}
+        return Recalculation(ordered=ordered, general=general, templates=len(self.templates),
+                             formula_cells=len(order))
+
+    def _load(self) -> tuple[list[tuple], list[tuple[str, tuple[int, int], str]]]:
+        """Constants into each sheet's values, every formula compiled; the formula cells in file order
+        and those on the general path."""
         order = []
         general = []
         for name, cells in self.book.sheets.items():
@@ -424,13 +436,28 @@ class Engine:
                 order.append((store, key, function, runs, row))
                 if type(function) is _GeneralPath:
                     general.append((name, (row, col), formula))
-        for store, key in self._first_pass(order):
-            if key not in store.out:
-                self._compute(store, key)
-        ordered = {name: [self.stores[name].out[r * WIDTH + c] for r, c in cells.formulas]
-                   for name, cells in self.book.sheets.items()}
-        return Recalculation(ordered=ordered, general=general, templates=len(self.templates),
-                             formula_cells=len(order))
+        return order, general
+
+    def each_on(self, given: dict[str, dict[tuple[int, int], object]], cells: list[tuple[str, int, int]]) -> list:
+        """The value of each of ``cells`` computed from the ``given`` values of the formula cells it reads
+        (formula cells not given are recalculated as usual): one formula at a time, so rounding cannot
+        build up along a chain of them."""
+        self._load()
+        for name, values in given.items():
+            store = self.stores.get(name)
+            if store is not None:
+                store.out.update((row * WIDTH + col, value) for (row, col), value in values.items())
+        results = []
+        for sheet, row, col in cells:
+            store = self.stores[sheet]
+            function, runs, host = store.formulas[row * WIDTH + col]
+            while True:
+                try:
+                    results.append(_evaluate(function, host, runs))
+                    break
+                except NotReady as wait:
+                    self._compute(wait.store, wait.key)
+        return results
 
     @staticmethod
     def _first_pass(order: list[tuple]) -> list[tuple[Store, int]]:
