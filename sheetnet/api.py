@@ -120,11 +120,12 @@ def extract_model(path, after_training: bool = False) -> Model:
     return extract(path, after_training=after_training)[0]
 
 
-def report_html(source, out, force: bool = False) -> Path:
-    """The HTML report of a model file or a workbook, like ``sheetnet report``."""
+def report_html(source, out, force: bool = False, data=None) -> Path:
+    """The HTML report of a model file (``data``: a CSV whose points the plots show) or a workbook, like
+    ``sheetnet report``."""
     from sheetnet.htmlreport import write_report
 
-    return write_report(source, out, force=force)
+    return write_report(source, out, force=force, data=data)
 
 
 def compare_learning_rates(data, target, rates, holdout: float | str = "auto", **train_options):

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import re
 import sys
 from collections.abc import Sequence
 from dataclasses import replace
@@ -46,8 +47,25 @@ from sheetnet.report import audit_lines, verify_lines
 from sheetnet.version import __version__
 
 
+class _DefaultsShown(argparse.HelpFormatter):
+    """Every option's default in its help, unless the help already says it (or there is none to say)."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        default = action.default
+        if "default" in text or default in (None, False, argparse.SUPPRESS) or not action.option_strings:
+            return text
+        shown = "none" if default == () else ",".join(map(str, default)) if isinstance(default, tuple) else default
+        return f"{text} (default: {shown})".lstrip()
+
+
 class _Parser(argparse.ArgumentParser):
-    """argparse that raises instead of printing usage and exiting, so errors stay one line."""
+    """argparse that raises instead of printing usage and exiting, so errors stay one line, and shows
+    every default in --help."""
+
+    def __init__(self, *args, **kwargs) -> None:
+        kwargs.setdefault("formatter_class", _DefaultsShown)
+        super().__init__(*args, **kwargs)
 
     def error(self, message: str) -> None:  # type: ignore[override]
         raise UsageError(message)
@@ -154,9 +172,12 @@ def add_train_flags(p: argparse.ArgumentParser, data_optional: bool = False) -> 
                    help="hidden-layer activation")
     p.add_argument("--steepness", type=_positive, default=1.0, help="sigmoid steepness s in sigma(s*(z-m))")
     p.add_argument("--midpoint", type=_finite, default=0.0, help="sigmoid midpoint m in sigma(s*(z-m))")
-    p.add_argument("--output", choices=("auto", "sigmoid", "softmax", "identity"), default="auto")
-    p.add_argument("--loss", choices=("auto", "squared", "cross-entropy"), default="auto")
-    p.add_argument("--task", choices=("auto", "binary", "multiclass", "multilabel", "regression"), default="auto")
+    p.add_argument("--output", choices=("auto", "sigmoid", "softmax", "identity"), default="auto",
+                   help="output activation (auto: from the task)")
+    p.add_argument("--loss", choices=("auto", "squared", "cross-entropy"), default="auto",
+                   help="loss (auto: cross-entropy for classes, squared for regression)")
+    p.add_argument("--task", choices=("auto", "binary", "multiclass", "multilabel", "regression"), default="auto",
+                   help="task (auto: from the target column(s))")
     # Training settings default to None so that build --model can tell a flag given from one left out
     # (then the model's stored settings apply); their defaults are TrainSettings' and said here.
     defaults = TrainSettings()
@@ -202,10 +223,10 @@ def _parser() -> argparse.ArgumentParser:
     demo_p = commands.add_parser("demo", help="build the demo workbook from invented data")
     demo_p.add_argument("--out", type=Path, default=Path("sheetnet_demo"), help="folder to write into")
     demo_p.add_argument("--force", action="store_true", help="overwrite existing demo files")
-    demo_p.add_argument("--quiet", action="store_true")
+    demo_p.add_argument("--quiet", action="store_true", help="no progress bar")
     verify_p = commands.add_parser("verify", help="recalculate a workbook and compare it with the reference trainer")
     verify_p.add_argument("book", type=Path)
-    verify_p.add_argument("--engine", choices=ENGINES, default="embedded")
+    verify_p.add_argument("--engine", choices=ENGINES, default="embedded", help="engine(s) that recalculate")
     verify_p.add_argument("--tolerance", type=_positive, default=DEFAULT_TOLERANCE,
                           help="a cell agrees when |found - expected| <= tolerance * max(1, |expected|)")
     verify_p.add_argument("--key", type=Path, metavar="KEYFILE", help="also check the signature made with this key")
@@ -232,6 +253,7 @@ def _parser() -> argparse.ArgumentParser:
     report_p = commands.add_parser("report", help="an HTML report with plots for a model file or a workbook")
     report_p.add_argument("source", type=Path, help="MODEL.json or BOOK.xlsx")
     report_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
+    report_p.add_argument("--data", type=Path, help="for a model file: a CSV whose points the plots show")
     report_p.add_argument("--force", action="store_true", help="overwrite an existing report")
     report_p.add_argument("--quiet", action="store_true", help="no progress bar (report shows none)")
     rates_p = commands.add_parser("rates", help="compare learning rates from the same initial weights")
@@ -519,8 +541,10 @@ def cmd_extract(args: argparse.Namespace) -> int:
 def cmd_report(args: argparse.Namespace) -> int:
     from sheetnet.htmlreport import write_report
 
-    check_output(args.out, args.force, inputs=[args.source], kind="HTML report")
-    write_report(args.source, args.out, force=args.force)
+    if args.data is not None and args.source.suffix.lower() != ".json":
+        raise UsageError("--data goes with a model file; a workbook's report plots the data it holds")
+    check_output(args.out, args.force, inputs=[args.source, *([args.data] if args.data else [])], kind="HTML report")
+    write_report(args.source, args.out, force=args.force, data=args.data)
     print(f"report written to {args.out}")
     return 0
 
@@ -563,10 +587,26 @@ COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": 
             "new-key": cmd_new_key}
 
 
+_NEGATIVE = re.compile(r"^-[0-9.]")
+
+
+def _negative_values_attached(argv: list[str]) -> list[str]:
+    """``--lr -0.1`` as ``--lr=-0.1``: argparse takes a value that starts with '-' for an option unless it
+    is a plain negative number, so ``--rates -1,0.1`` would fail as a missing value instead of saying
+    that -1 is out of range."""
+    out: list[str] = []
+    for token in argv:
+        if out and out[-1].startswith("--") and "=" not in out[-1] and _NEGATIVE.match(token):
+            out[-1] = f"{out[-1]}={token}"
+        else:
+            out.append(token)
+    return out
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point: returns the exit code."""
     try:
-        args = _parser().parse_args(argv)
+        args = _parser().parse_args(_negative_values_attached(sys.argv[1:] if argv is None else list(argv)))
         return COMMANDS[args.command](args)
     except SheetNetError as exc:
         print(f"sheetnet: error: {exc}", file=sys.stderr)

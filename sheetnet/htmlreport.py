@@ -71,22 +71,20 @@ def decision_plot(model: Model, x: np.ndarray | None, labels: list[str] | None) 
     if len(model.inputs) != 2:
         return None
     plt = _figure()
-    lo, hi = (x.min(axis=0), x.max(axis=0)) if x is not None and len(x) else (np.array([-3.0, -3.0]),
-                                                                              np.array([3.0, 3.0]))
+    lo, hi = _plane(model, x)
     pad = 0.1 * (hi - lo + 1e-9)
     g0, g1 = np.meshgrid(np.linspace(lo[0] - pad[0], hi[0] + pad[0], 200), np.linspace(lo[1] - pad[1],
                                                                                        hi[1] + pad[1], 200))
     grid = np.column_stack([g0.ravel(), g1.ravel()])
     y = forward_pass(model.layers, scaled_inputs(model, grid)).output
-    z = np.argmax(y, axis=1) if y.shape[1] > 1 else (y[:, 0] >= 0.5).astype(float) if model.task != "regression" \
-        else y[:, 0]
-    fig, ax = plt.subplots(figsize=(5, 4.2))
-    ax.contourf(g0, g1, z.reshape(g0.shape), alpha=0.35, cmap="coolwarm")
-    if x is not None and labels is not None:
-        for label in sorted(set(labels)):
-            pick = np.array([lab == label for lab in labels])
-            ax.scatter(x[pick, 0], x[pick, 1], s=14, label=label, edgecolors="k", linewidths=0.3)
-        ax.legend(fontsize=8)
+    fig, ax = plt.subplots(figsize=(5.4, 4.2))
+    if model.task == "regression":
+        filled = ax.contourf(g0, g1, y[:, 0].reshape(g0.shape), levels=12, alpha=0.45, cmap="viridis")
+        fig.colorbar(filled, ax=ax, label=f"predicted {model.outputs[0]}")
+        if x is not None:
+            ax.scatter(x[:, 0], x[:, 1], s=10, color="k", alpha=0.6)
+    else:
+        _class_regions(plt, ax, model, g0, g1, y, x, labels)
     offset = model.scaling.offset if model.scaling else np.zeros(2)
     scale = model.scaling.scale if model.scaling else np.ones(2)
     first = model.layers[0]
@@ -101,6 +99,78 @@ def decision_plot(model: Model, x: np.ndarray | None, labels: list[str] | None) 
     ax.set_xlabel(model.inputs[0])
     ax.set_ylabel(model.inputs[1])
     ax.set_title("decision regions and first-layer boundaries")
+    return _png(fig)
+
+
+def _class_regions(plt, ax, model: Model, g0, g1, y: np.ndarray, x: np.ndarray | None,
+                   labels: list[str] | None) -> None:
+    """Each class's predicted region in its own colour, the data's points in the colour of their class."""
+    from matplotlib.patches import Patch
+
+    names = list(model.classes or model.outputs) if model.task != "multilabel" else list(model.outputs)
+    if model.task == "binary":
+        names = list(model.classes or ("0", "1"))
+        z = (y[:, 0] >= 0.5).astype(float)
+    else:
+        z = np.argmax(y, axis=1).astype(float)
+    colours = [plt.get_cmap("tab10")(k % 10) for k in range(len(names))]
+    ax.contourf(g0, g1, z.reshape(g0.shape), levels=np.arange(len(names) + 1) - 0.5, colors=colours, alpha=0.3)
+    handles = [Patch(facecolor=colours[k], alpha=0.3, label=f"predicted {name}") for k, name in enumerate(names)]
+    if x is not None and labels is not None:
+        for label in sorted(set(labels)):
+            pick = np.array([lab == label for lab in labels])
+            colour = colours[names.index(label)] if label in names else "grey"
+            handles.append(ax.scatter(x[pick, 0], x[pick, 1], s=14, color=colour, label=label, edgecolors="k",
+                                      linewidths=0.4))
+    ax.legend(handles=handles, fontsize=7, loc="best")
+
+
+def _plane(model: Model, x: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """The part of the input plane to draw, in the data's raw units: the data's range, else where the
+    model's scaling says its training inputs lay (mean +- 3 standard deviations, or min to max)."""
+    if x is not None and len(x):
+        return x.min(axis=0), x.max(axis=0)
+    if model.scaling is None:
+        return np.full(2, -3.0), np.full(2, 3.0)
+    offset, scale = model.scaling.offset, model.scaling.scale
+    if model.scaling.method == "minmax":
+        return offset, offset + scale
+    return offset - 3 * scale, offset + 3 * scale
+
+
+#: Above this many units in one layer the drawing would be a blur of lines.
+NETWORK_DRAWING_UNITS = 80
+
+
+def network_plot(model: Model) -> str | None:
+    """The network itself: units in columns, one line per weight, its width the weight's size relative
+    to the largest in the network and its colour the sign (blue positive, red negative)."""
+    sizes = [len(model.inputs), *(layer.units for layer in model.layers)]
+    if max(sizes) > NETWORK_DRAWING_UNITS:
+        return None
+    plt = _figure()
+    fig, ax = plt.subplots(figsize=(2.2 * len(sizes) + 1, max(3.0, 0.32 * max(sizes) + 1)))
+    ys = [np.linspace(0, 1, n) if n > 1 else np.array([0.5]) for n in sizes]
+    largest = max(float(np.abs(layer.weights).max(initial=0.0)) for layer in model.layers) or 1.0
+    for k, layer in enumerate(model.layers):
+        for j in range(layer.units):
+            for i in range(sizes[k]):
+                w = layer.weights[j, i]
+                ax.plot([k, k + 1], [ys[k][i], ys[k + 1][j]], color="tab:blue" if w >= 0 else "tab:red",
+                        linewidth=0.2 + 3.0 * abs(w) / largest, alpha=0.75, zorder=1)
+    names = [list(model.inputs), *([f"{layer.activation.name} {j + 1}" for j in range(layer.units)]
+                                    for layer in model.layers[:-1]), list(model.outputs)]
+    for k, column in enumerate(names):
+        ax.scatter([k] * len(column), ys[k], s=60, color="white", edgecolors="k", zorder=2)
+        if k in (0, len(names) - 1) and len(column) <= 40:
+            for y, name in zip(ys[k], column, strict=True):
+                ax.text(k + (-0.08 if k == 0 else 0.08), y, name, ha="right" if k == 0 else "left",
+                        va="center", fontsize=7)
+    ax.set_xticks(range(len(sizes)), ["inputs", *(f"layer {k + 1}" for k in range(len(model.layers)))])
+    ax.set_yticks([])
+    ax.set_xlim(-1.0, len(sizes))
+    ax.invert_yaxis()  # first input and first output at the top, as in the model file
+    ax.set_title("the network's weights")
     return _png(fig)
 
 
@@ -130,14 +200,18 @@ def page(title: str, sections: list[Section]) -> str:
     return "\n".join(parts)
 
 
-def model_sections(model: Model, x: np.ndarray | None = None, labels: list[str] | None = None) -> list[Section]:
-    """Loss per epoch, holdout metrics and confusion matrix, decision regions (two inputs)."""
-    from sheetnet.book.guide import CAUTION
+def model_sections(model: Model, x: np.ndarray | None = None, labels: list[str] | None = None,
+                   subject: str = "This report describes a model") -> list[Section]:
+    """Loss per epoch, holdout metrics and confusion matrix, decision regions (two inputs) or else a
+    drawing of the network. ``subject`` opens the caution (a model file's report, or a workbook's)."""
+    from sheetnet.book.guide import caution
 
     training = model.training or {}
     arch = " -> ".join([f"{len(model.inputs)} inputs", *(f"{layer.units} {layer.activation.name}"
                                                         for layer in model.layers)])
-    sections = [Section("Model", [f"{model.task} network: {arch}; loss: {model.loss}.", CAUTION], [])]
+    scaling = "none" if model.scaling is None else model.scaling.method
+    sections = [Section("Model", [f"{model.task} network: {arch}; loss: {model.loss}; input scaling: {scaling} "
+                                  "(plots are in the data's own units).", caution(subject)], [])]
     curve = training.get("epoch_loss")
     if curve:
         sections.append(Section("Loss per epoch", [], [loss_plot({"training": curve}, "training loss")]))
@@ -157,8 +231,17 @@ def model_sections(model: Model, x: np.ndarray | None = None, labels: list[str] 
         sections.append(Section(title, lines, images))
     regions = decision_plot(model, x, labels)
     if regions:
-        sections.append(Section("Decision regions", ["Dashed: where each first-layer unit's weighted sum is 0."],
-                                [regions]))
+        where = "the data's range" if x is not None and len(x) else \
+            "where the model's scaling says its training inputs lay (no data given)"
+        sections.append(Section("Decision regions", [f"Over {where}. Dashed: where each first-layer unit's "
+                                                     "weighted sum is 0."], [regions]))
+    else:
+        drawing = network_plot(model)
+        note = "A decision plot needs exactly two inputs; the network is drawn instead: one line per weight, " \
+            "its width the weight's size (the largest is thickest), blue positive, red negative." if drawing else \
+            f"A decision plot needs exactly two inputs, and a layer over {NETWORK_DRAWING_UNITS} units is too " \
+            "large to draw."
+        sections.append(Section("The network", [note], [drawing] if drawing else []))
     return sections
 
 
@@ -196,7 +279,8 @@ def book_sections(path: Path) -> list[Section]:
     held = np.array([s == "holdout" for s in spec.sets], dtype=bool)
     if numbers.scoring.t is not None and held.any():
         training["holdout_metrics"] = evaluate(model, x[held], numbers.scoring.t[held], inputs.threshold).to_dict()
-    sections = model_sections(replace(model, training=training), x, labels)
+    sections = model_sections(replace(model, training=training), x, labels,
+                              subject="This workbook reproduces a model's arithmetic")
     if numbers.record is not None:
         sections.insert(1, Section("Training record", ["Mean loss per epoch of the record, as the reference "
                                                        "trainer replays it from the workbook's inputs."],
@@ -205,10 +289,28 @@ def book_sections(path: Path) -> list[Section]:
     return sections
 
 
-def write_report(source: str | Path, out: str | Path, force: bool = False) -> Path:
-    """The HTML report of a model file (.json) or a workbook (.xlsx)."""
+def data_points(model: Model, data: str | Path) -> tuple[np.ndarray, list[str] | None]:
+    """A table's input columns (raw units) for a model's plots, and the class labels when the table
+    holds the model's target."""
+    from sheetnet.net import data as dataio
+
+    table = dataio.read_csv(data)
+    x = dataio.feature_matrix(table, model.inputs)
+    target = model.target[0] if len(model.target) == 1 else None
+    labels = None
+    if target in table.header and model.task in ("binary", "multiclass"):
+        labels = [str(v).strip() for v in table.column(target)]
+    return x, labels
+
+
+def write_report(source: str | Path, out: str | Path, force: bool = False, data: str | Path | None = None) -> Path:
+    """The HTML report of a model file (.json; ``data`` adds its points to the plots) or a workbook (.xlsx)."""
     from sheetnet.net.model import load_model
 
     source = Path(source)
-    sections = model_sections(load_model(source)) if source.suffix.lower() == ".json" else book_sections(source)
+    if source.suffix.lower() == ".json":
+        model = load_model(source)
+        sections = model_sections(model, *data_points(model, data)) if data is not None else model_sections(model)
+    else:
+        sections = book_sections(source)
     return write_html(Path(out), page(f"sheetnet report: {source.name}", sections), force)

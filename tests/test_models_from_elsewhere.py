@@ -128,3 +128,38 @@ def test_a_long_table_gets_a_stated_scoring_sample(tmp_path, run_cli):
         "sheetnet_layout"].iter_rows(min_row=2, max_col=1) if c.value))
     assert description["spec"]["n_cases"] == held
     assert run_cli("verify", tmp_path / "b.xlsx", "--quiet")[0] == 0
+
+
+def test_every_option_shows_its_default_in_help():
+    """Each option of each command that has a default says it in --help (argparse's own help text)."""
+    import argparse
+
+    from sheetnet.cli import _parser
+
+    parser = _parser()
+    commands = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    checked = 0
+    for name, sub in commands.choices.items():
+        formatter = sub._get_formatter()
+        for action in sub._actions:
+            if not action.option_strings or action.default in (None, False, argparse.SUPPRESS) or \
+                    isinstance(action, argparse._HelpAction):
+                continue
+            assert "default" in formatter._get_help_string(action), (name, action.option_strings)
+            checked += 1
+    assert checked > 20
+
+
+@pytest.mark.parametrize("args, says", [
+    (["rates", "{csv}", "--target", "y", "--rates", "-1,0.1", "-o", "{out}.html"], "must be > 0, got '-1'"),
+    (["train", "{csv}", "--target", "y", "--lr", "-0.1", "-o", "{out}.json"], "must be > 0, got '-0.1'"),
+    (["score", "{csv}", "{csv}", "--threshold", "2", "-o", "{out}.csv"], "must be a number in [0, 1]"),
+    (["train", "{csv}", "--target", "y", "--holdout", "1", "-o", "{out}.json"], "fraction in [0, 1)"),
+    (["train", "{csv}", "--target", "y", "--epochs", "0", "-o", "{out}.json"], "must be >= 1"),
+    (["train", "{csv}", "--target", "y", "--batch-size", "-2", "-o", "{out}.json"], "must be >= 1"),
+])
+def test_out_of_range_values_are_clear_usage_errors(args, says, tmp_path, run_cli, xor_csv):
+    out = tmp_path / "out"
+    code, _, err = run_cli(*[a.format(csv=xor_csv, out=out) for a in args])
+    assert code == 2 and says in err and "expected one argument" not in err
+    assert not list(tmp_path.glob("out*"))

@@ -86,3 +86,49 @@ def test_python_api_reports_and_compares_rates(tmp_path):
     model.save(tmp_path / "m.json")
     page = sheetnet.report_html(tmp_path / "m.json", tmp_path / "r.html")
     assert _images(page)
+
+
+def test_a_model_files_report_is_in_raw_units_and_speaks_of_a_model(tmp_path, run_cli):
+    """Inputs far from 0 (a temperature of 200-300, a pressure of 1,000-2,000): without data the plane
+    drawn is where the model's standard scaling says its inputs lay (mean +- 3 standard deviations, the
+    three-sigma rule, common practice), in those units; with --data the points are drawn too."""
+    from sheetnet.htmlreport import _plane
+    from sheetnet.net.model import load_model
+
+    rng = np.random.default_rng(7)
+    t, p = rng.uniform(200, 300, 120).round(2), rng.uniform(1000, 2000, 120).round(1)
+    label = np.where((t - 250) / 50 + (p - 1500) / 500 > 0, "fail", "pass")
+    data = write_csv(tmp_path / "plant.csv", ["temp", "pressure", "status"],
+                     [[a, b, c] for a, b, c in zip(t, p, label, strict=True)])
+    assert run_cli("train", data, "--target", "status", "--epochs", "20", "-o", tmp_path / "m.json")[0] == 0
+    lo, hi = _plane(load_model(tmp_path / "m.json"), None)
+    assert (lo < [t.min(), p.min()]).all() and (hi > [t.max(), p.max()]).all()
+    assert (lo > [100, 0]).all() and (hi < [400, 3000]).all()
+    assert run_cli("report", tmp_path / "m.json", "-o", tmp_path / "r.html")[0] == 0
+    assert run_cli("report", tmp_path / "m.json", "--data", data, "-o", tmp_path / "rd.html")[0] == 0
+    plain, with_points = (tmp_path / "r.html").read_text(), (tmp_path / "rd.html").read_text()
+    assert "This report describes a model; it does not validate the model" in plain
+    assert "This workbook" not in plain
+    assert "scaling says its training inputs lay" in plain and "Over the data" in with_points
+    assert _images(tmp_path / "r.html")[-1] != _images(tmp_path / "rd.html")[-1]
+
+
+def test_a_model_with_more_than_two_inputs_is_drawn_as_a_network(tmp_path, run_cli):
+    """Fisher's iris measurements (Fisher 1936, as scikit-learn ships them): four inputs, so no
+    decision plane; the report draws the network's weights instead."""
+    import sklearn.datasets
+
+    frame = sklearn.datasets.load_iris(as_frame=True).frame
+    frame.to_csv(tmp_path / "iris.csv", index=False)
+    assert run_cli("train", tmp_path / "iris.csv", "--target", "target", "--epochs", "5",
+                   "-o", tmp_path / "m.json")[0] == 0
+    assert run_cli("report", tmp_path / "m.json", "-o", tmp_path / "r.html")[0] == 0
+    text = (tmp_path / "r.html").read_text()
+    assert "The network" in text and "Decision regions" not in text
+    assert _images(tmp_path / "r.html")[-1].startswith(b"\x89PNG")
+
+
+def test_report_data_goes_with_a_model_file_only(tmp_path, run_cli, xor_csv):
+    code, _, err = run_cli("report", tmp_path / "book.xlsx", "--data", xor_csv, "-o", tmp_path / "r.html")
+    assert code == 2 and "--data goes with a model file" in err
+    assert not (tmp_path / "r.html").exists()

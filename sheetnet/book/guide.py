@@ -7,9 +7,15 @@ from sheetnet.book import layout as L
 from sheetnet.book.addresses import Block, defined_name_target
 from sheetnet.book.layout import BookLayout
 
-CAUTION = ("This workbook reproduces a model's arithmetic; it does not validate the model. Where its outputs "
-           "affect people (credit, hiring, safety and the like), follow your organisation's model-risk policy "
-           "and local regulation, and have the model reviewed by qualified people before relying on it.")
+
+def caution(subject: str) -> str:
+    """The caution every output that can affect people carries, after what it is (``subject``)."""
+    return (f"{subject}; it does not validate the model. Where its outputs affect people (credit, hiring, "
+            "safety and the like), follow your organisation's model-risk policy and local regulation, and have "
+            "the model reviewed by qualified people before relying on it.")
+
+
+CAUTION = caution("This workbook reproduces a model's arithmetic")
 
 
 def _name_meaning(name: str) -> str:
