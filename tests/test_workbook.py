@@ -216,7 +216,7 @@ def test_model_without_data_gives_parameters_and_calculator(tmp_path, run_cli):
 
 @pytest.mark.parametrize("config", sorted(CONFIGS))
 def test_shaped_record_rows_equal_rows_built_one_by_one(config, tmp_path, run_cli, monkeypatch):
-    from sheetnet.book import plan
+    from sheetnet.book.cells import record
     from sheetnet.book.layout import build_layout
     from sheetnet.book.numbers import compute
     from sheetnet.book.read import read_inputs, read_layout
@@ -226,9 +226,9 @@ def test_shaped_record_rows_equal_rows_built_one_by_one(config, tmp_path, run_cl
     layout, _ = read_layout(book)
     numbers = compute(layout.spec, read_inputs(book, layout))
     layout = build_layout(layout.spec)
-    shaped = list(plan.record_entries(layout, numbers))
-    monkeypatch.setattr(plan, "SHAPED_RECORD_ROWS", False)
-    one_by_one = list(plan.record_entries(layout, numbers))
+    shaped = list(record.record_entries(layout, numbers))
+    monkeypatch.setattr(record, "SHAPED_RECORD_ROWS", False)
+    one_by_one = list(record.record_entries(layout, numbers))
     assert len(shaped) == len(one_by_one) > 100
     for a, b in zip(shaped, one_by_one, strict=True):
         assert (a.row, a.col, a.role, a.content) == (b.row, b.col, b.role, b.content)

@@ -21,11 +21,11 @@ from xlsxwriter.worksheet import Worksheet
 from sheetnet.book import layout as L
 from sheetnet.book import plan
 from sheetnet.book.addresses import a1, defined_name_target, range_ref
+from sheetnet.book.cells.entry import Entry
 from sheetnet.book.describe import LAYOUT_TITLE, Fingerprints
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import Numbers
-from sheetnet.book.plan import Entry
 from sheetnet.book.signing import CellDigests
 from sheetnet.errors import WorkbookFormatError
 

@@ -42,6 +42,7 @@ from sheetnet.book.addresses import (
     quote_sheet,
 )
 from sheetnet.book.canonical import target_text
+from sheetnet.book.cells.entry import Entry
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout, Table, build_layout
 from sheetnet.book.numbers import compute
@@ -263,7 +264,7 @@ def alignment_for(book: Workbook, layout: BookLayout, original: BookInputs | Non
         raise WorkbookFormatError(f"the workbook was restructured and cannot be re-aligned ({exc})") from None
 
 
-def light_entries(layout: BookLayout, inputs: BookInputs) -> list[tuple[str, plan.Entry]]:
+def light_entries(layout: BookLayout, inputs: BookInputs) -> list[tuple[str, Entry]]:
     """Every cell outside the training record's body, cheaply: texts and the formulas of the other
     sheets do not depend on how long the record is, so a record of one (the widest) step gives them
     without replaying the whole run."""
@@ -346,10 +347,10 @@ def _find_moves(alignment: Alignment, book: Workbook, layout: BookLayout) -> Non
                                         f"to {target.sheet}!{a1(target.top, target.left)}"))
 
 
-def guide_entries(layout: BookLayout) -> list[tuple[str, plan.Entry]]:
+def guide_entries(layout: BookLayout) -> list[tuple[str, Entry]]:
     """The Guide's texts as entries (the Guide is prose, not a plan sheet, but its rows move too)."""
     lines = guide_lines(layout, layout.defined_names())
-    return [(L.GUIDE, plan.Entry(row, col, "text", text)) for row, (_, left, right) in enumerate(lines)
+    return [(L.GUIDE, Entry(row, col, "text", text)) for row, (_, left, right) in enumerate(lines)
             for col, text in ((0, left), (1, right)) if text]
 
 

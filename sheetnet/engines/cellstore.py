@@ -1,0 +1,84 @@
+"""The values a compiled formula reads: one store per sheet (constants, then computed formulas),
+read through V (one cell) and A (a block), and the runtime names generated code calls.
+
+A formula that needs a formula cell not computed yet raises :class:`NotReady`; the engine's
+scheduler computes that cell first."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from sheetnet.book.xlsxread import CellError
+from sheetnet.engines import xlfuncs as xf
+
+WIDTH = 16_384  # cell key = row * WIDTH + col
+MISSING = object()
+
+
+class NotReady(Exception):
+    """A formula needs the value of another formula that is not computed yet."""
+
+    def __init__(self, store: Store, key: int) -> None:
+        super().__init__()
+        self.store, self.key = store, key
+
+
+@dataclass(eq=False)
+class Store:
+    """One sheet: formula cells (key -> evaluator) and values (constants, then computed formulas)."""
+
+    name: str
+    formulas: dict[int, object] = field(default_factory=dict)
+    out: dict[int, object] = field(default_factory=dict)
+
+
+def V(store: Store, row: int, col: int):
+    """The value of one cell as a formula sees it (errors raised, uncomputed formulas NotReady).
+
+    ``store.out`` holds the constants from the start and each formula's value once computed."""
+    key = row * WIDTH + col
+    value = store.out.get(key, MISSING)
+    if value is MISSING:
+        if key in store.formulas:
+            raise NotReady(store, key)
+        return None
+    if type(value) is CellError:
+        raise xf.XlErr(value.code)
+    return value
+
+
+def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xf.Arr:
+    """A block of values (errors kept as elements)."""
+    get = store.out.get
+    if r0 == r1:
+        base = r0 * WIDTH
+        values = [get(base + col, MISSING) for col in range(c0, c1 + 1)]
+    else:
+        values = [get(row * WIDTH + col, MISSING) for row in range(r0, r1 + 1) for col in range(c0, c1 + 1)]
+    if MISSING in values:
+        values = _fill(store, values, r0, c0, c1)
+    return xf.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
+
+
+def _fill(store: Store, values: list, r0: int, c0: int, c1: int) -> list:
+    """Empty cells read as None; a formula not computed yet is NotReady."""
+    width = c1 - c0 + 1
+    for n, value in enumerate(values):
+        if value is MISSING:
+            key = (r0 + n // width) * WIDTH + c0 + n % width
+            if key in store.formulas:
+                raise NotReady(store, key)
+            values[n] = None
+    return values
+
+
+def raise_error(code: str):
+    raise xf.XlErr(code)
+
+
+RUNTIME = {name: getattr(xf, name) for name in dir(xf) if name.startswith(("op_", "f_"))}
+RUNTIME.update(ADD=xf.add, SUB=xf.sub, MUL=xf.mul, DIV2=xf.divide, POW2=xf.raise_to,
+               V=V, A=A, N=xf.num, T=xf.text, TRUTH=xf.truth, DIV=xf.div, POW=xf.power, CMP=xf.compare,
+               EW=xf.elementwise, M=xf.mapped, RAISE=raise_error, neg=lambda x: -xf.num(x))
+
+
