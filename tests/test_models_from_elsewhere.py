@@ -134,9 +134,9 @@ def test_every_option_shows_its_default_in_help():
     """Each option of each command that has a default says it in --help (argparse's own help text)."""
     import argparse
 
-    from sheetnet.cli import _parser
+    from sheetnet.flags import command_parser
 
-    parser = _parser()
+    parser = command_parser()
     commands = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
     checked = 0
     for name, sub in commands.choices.items():
