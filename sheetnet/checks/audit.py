@@ -24,7 +24,8 @@ from sheetnet.book.signing import check_signature
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import Description, read_description, read_returned_workbook
 from sheetnet.book.xlsxread import Workbook
-from sheetnet.checks.align import Alignment, align
+from sheetnet.checks.align import align
+from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.audit_cells import check_formulas, check_guide, check_inputs, check_risks, check_structure
 from sheetnet.checks.findings import KINDS, AuditReport, Finding
 from sheetnet.checks.tolerance import DEFAULT_TOLERANCE

@@ -17,7 +17,7 @@ from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import InvalidInput, input_cells
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.xlsxread import CellError, SheetCells, Workbook
-from sheetnet.checks.align import Alignment
+from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.findings import AuditReport, Finding, plain
 
 VOLATILE = ("NOW", "TODAY", "RAND", "RANDBETWEEN", "OFFSET", "INDIRECT", "INFO", "CELL", "RANDARRAY")

@@ -23,7 +23,8 @@ from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import read_returned_workbook
 from sheetnet.book.xlsxread import Workbook
-from sheetnet.checks.align import Alignment, alignment_for, light_entries
+from sheetnet.checks.align import alignment_for, light_entries
+from sheetnet.checks.alignment import Alignment
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model

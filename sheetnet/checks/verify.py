@@ -23,7 +23,8 @@ from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
 from sheetnet.book.untrusted import read_description, read_returned_workbook
 from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
-from sheetnet.checks.align import Alignment, alignment_for
+from sheetnet.checks.align import alignment_for
+from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.checks.stability import NUDGE, Unstable, check_one_at_a_time, unstable_cells
 from sheetnet.checks.tolerance import DEFAULT_TOLERANCE, agree
