@@ -19,7 +19,7 @@ from sheetnet.book.addresses import Block, Cell, cell_name
 from sheetnet.book.layout import BookLayout, ParamBlocks
 from sheetnet.book.spec import BookInputs, BookSpec
 from sheetnet.book.untrusted import NEEDED_TO_VERIFY, Description, read_description
-from sheetnet.book.xlsxread import CellError, Workbook
+from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.errors import InvalidInputsError
 from sheetnet.net.model import Layer
 

@@ -29,7 +29,7 @@ from sheetnet.book.layout import LAYOUT, BookLayout, build_layout
 from sheetnet.book.read import input_cells
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.untrusted import layout_sheet_problems
-from sheetnet.book.xlsxread import Workbook
+from sheetnet.book.xlsxcells import Workbook
 from sheetnet.errors import UsageError
 
 KEY_BYTES = 32

@@ -33,7 +33,8 @@ from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
 from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.spec import BookInputs, BookSpec
-from sheetnet.book.xlsxread import Workbook, read_workbook
+from sheetnet.book.xlsxcells import Workbook
+from sheetnet.book.xlsxread import read_workbook
 from sheetnet.errors import DescriptionError, WorkbookFormatError
 
 #: The description's text is refused beyond this many characters, and beyond CHARS_PER_CELL for each

@@ -42,7 +42,7 @@ from sheetnet.book.layout import BookLayout, Table, build_layout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs_checked
 from sheetnet.book.spec import BookInputs
-from sheetnet.book.xlsxread import Workbook
+from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.alignment import Alignment, Change, SheetMap, describe_changes
 from sheetnet.errors import SheetNetError, WorkbookFormatError
 

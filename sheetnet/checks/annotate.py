@@ -12,7 +12,7 @@ from xml.sax.saxutils import escape
 from sheetnet.book.addresses import parse_a1, quote_sheet
 from sheetnet.book.layout import LAYOUT
 from sheetnet.book.untrusted import read_returned_workbook
-from sheetnet.book.xlsxread import CellError, Workbook
+from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.checks.findings import AuditReport
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.files import write_atomic

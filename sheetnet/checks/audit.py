@@ -23,7 +23,7 @@ from sheetnet.book.read import read_inputs, read_inputs_checked, read_layout
 from sheetnet.book.signing import check_signature
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import Description, read_description, read_returned_workbook
-from sheetnet.book.xlsxread import Workbook
+from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.align import align
 from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.audit_cells import check_formulas, check_guide, check_inputs, check_risks, check_structure

@@ -16,7 +16,7 @@ from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import InvalidInput, input_cells
 from sheetnet.book.spec import BookInputs
-from sheetnet.book.xlsxread import CellError, SheetCells, Workbook
+from sheetnet.book.xlsxcells import CellError, SheetCells, Workbook
 from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.findings import AuditReport, Finding, plain
 

@@ -22,7 +22,7 @@ from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import read_returned_workbook
-from sheetnet.book.xlsxread import Workbook
+from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.align import alignment_for, light_entries
 from sheetnet.checks.alignment import Alignment
 from sheetnet.errors import WorkbookFormatError

@@ -19,7 +19,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from sheetnet.book.addresses import a1
-from sheetnet.book.xlsxread import Workbook
+from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.checks.tolerance import agree
 

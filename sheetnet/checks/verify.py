@@ -22,7 +22,8 @@ from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
 from sheetnet.book.untrusted import read_description, read_returned_workbook
-from sheetnet.book.xlsxread import CellError, Workbook, read_workbook
+from sheetnet.book.xlsxcells import CellError, Workbook
+from sheetnet.book.xlsxread import read_workbook
 from sheetnet.checks.align import alignment_for
 from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.findings import LIST_LIMIT, plain

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from sheetnet.book.xlsxread import CellError
+from sheetnet.book.xlsxcells import CellError
 from sheetnet.engines import xlfuncs as xf
 
 WIDTH = 16_384  # cell key = row * WIDTH + col

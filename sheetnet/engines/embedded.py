@@ -20,7 +20,7 @@ from dataclasses import dataclass
 from operator import itemgetter
 
 from sheetnet.book.addresses import column_index
-from sheetnet.book.xlsxread import CellError, Workbook
+from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.engines import xlfuncs as xf
 from sheetnet.engines.cellstore import RUNTIME, WIDTH, NotReady, Store, V
 from sheetnet.engines.compiler import REFERENCE, RUNS, FormulaCompiler, FormulaParser, Unsupported

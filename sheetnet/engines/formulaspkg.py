@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from sheetnet.book.addresses import parse_a1
-from sheetnet.book.xlsxread import CellError, Workbook
+from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.errors import EvaluationError, UsageError
 
 #: Formula cells beyond which the `formulas` engine is refused (about a minute and 1.2 GB there).

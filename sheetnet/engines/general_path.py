@@ -7,7 +7,7 @@ import os
 import re
 
 from sheetnet.book.addresses import column_index
-from sheetnet.book.xlsxread import CellError
+from sheetnet.book.xlsxcells import CellError
 from sheetnet.engines import xlfuncs as xf
 from sheetnet.engines.cellstore import A
 from sheetnet.engines.compiler import RANGE

@@ -12,7 +12,7 @@ import math
 import re
 from typing import NamedTuple
 
-from sheetnet.book.xlsxread import CellError
+from sheetnet.book.xlsxcells import CellError
 
 
 class XlErr(Exception):
