@@ -10,10 +10,10 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from pathlib import Path
 
-from sheetnet.errors import UsageError
+from sheetnet.errors import SheetNetError, UsageError
 
 #: What each kind of output file must be called (a model written as "book.xlsx" helps nobody).
 OUTPUT_SUFFIXES = {"model file": (".json",), "workbook": (".xlsx",), "scores file": (".csv",),
@@ -77,3 +77,17 @@ def _file_mode(target: Path) -> int:
 def write_text_atomic(path: Path, text: str, force: bool = False) -> Path:
     """Write UTF-8 text atomically."""
     return write_atomic(path, lambda tmp: tmp.write_text(text, encoding="utf-8"), force=force)
+
+
+@contextlib.contextmanager
+def reading(path: Path, error: type[SheetNetError], missing: str, folder: str) -> Iterator[None]:
+    """An input file that cannot be opened as one line of ``error``: ``missing`` names what was not
+    found ("data file"), ``folder`` what a folder is not ("a workbook")."""
+    try:
+        yield
+    except FileNotFoundError:
+        raise error(f"{path}: {missing} not found") from None
+    except IsADirectoryError:
+        raise error(f"{path}: is a folder, not {folder}") from None
+    except OSError as exc:
+        raise error(f"{path}: cannot read ({exc.strerror})") from None

@@ -12,6 +12,7 @@ from pathlib import Path
 from defusedxml import ElementTree as SafeET
 
 from sheetnet.errors import UsageError, WorkbookFormatError
+from sheetnet.files import reading
 
 NS_MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
 NS_REL = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
@@ -34,15 +35,8 @@ _OLE = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"
 
 
 def check_signature(path: Path) -> None:
-    try:
-        with path.open("rb") as handle:
-            head = handle.read(8)
-    except FileNotFoundError:
-        raise WorkbookFormatError(f"{path}: file not found") from None
-    except IsADirectoryError:
-        raise WorkbookFormatError(f"{path}: is a folder, not a workbook") from None
-    except OSError as exc:
-        raise WorkbookFormatError(f"{path}: cannot read ({exc.strerror})") from None
+    with reading(path, WorkbookFormatError, "file", "a workbook"), path.open("rb") as handle:
+        head = handle.read(8)
     if head.startswith(_OLE):
         raise WorkbookFormatError(f"{path}: an encrypted (password-protected) or legacy .xls workbook; "
                                   "save it as an unprotected .xlsx first")

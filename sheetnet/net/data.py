@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from sheetnet.errors import DataError, UsageError
+from sheetnet.files import reading
 from sheetnet.net.model import TASKS, Scaling
 
 if TYPE_CHECKING:  # pandas is imported only where a DataFrame is used (start-up time)
@@ -94,17 +95,11 @@ def read_csv(path: str | Path) -> Table:
 
 
 def _read_text(path: Path) -> str:
-    try:
+    with reading(path, DataError, "data file", "a data file"):
         size = path.stat().st_size
         if size > MAX_BYTES:
             raise DataError(f"{path}: file is {size:,} bytes; the limit is {MAX_BYTES:,}")
         raw = path.read_bytes()
-    except FileNotFoundError:
-        raise DataError(f"{path}: data file not found") from None
-    except IsADirectoryError:
-        raise DataError(f"{path}: is a folder, not a data file") from None
-    except OSError as exc:
-        raise DataError(f"{path}: cannot read ({exc.strerror})") from None
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
