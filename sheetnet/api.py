@@ -21,11 +21,17 @@ import numpy as np
 
 from sheetnet.book.build import DEFAULT_MAX_CELLS, from_fit, from_model, write_workbook
 from sheetnet.book.sizing import Requested
+from sheetnet.checks.audit import audit
+from sheetnet.checks.extract import extract
+from sheetnet.checks.verify import verify
+from sheetnet.htmlreport import write_report
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
 from sheetnet.net.fit import Architecture, FitOutcome, fit
 from sheetnet.net.model import Model, load_model
+from sheetnet.net.score import score_table
 from sheetnet.net.train import TrainSettings, stored_settings
+from sheetnet.rates import compare_rates
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -36,7 +42,7 @@ def as_table(data, source: str = "data") -> dataio.Table:
     if isinstance(data, str | Path):
         return dataio.read_csv(data)
     if isinstance(data, np.ndarray):
-        import pandas as pd
+        import pandas as pd  # lazy: pandas costs about half a second to import and only this path needs it
 
         data = pd.DataFrame(np.atleast_2d(data), columns=[f"x{i + 1}" for i in range(np.atleast_2d(data).shape[1])])
     return dataio.table_from_frame(data, source)
@@ -71,7 +77,6 @@ def train(data, target, hidden=(4,), activation: str = "sigmoid", output: str | 
 
 def score(model: Model | str | Path, data, threshold: float = 0.5, keep_other_columns: bool = True) -> pd.DataFrame:
     """Scores like ``sheetnet score``: the data's columns, probabilities (or values) and ``predicted``."""
-    from sheetnet.net.score import score_table
 
     model = load_model(model) if isinstance(model, str | Path) else model
     return score_table(model, as_table(data), threshold, keep_other_columns)
@@ -101,21 +106,18 @@ def build_workbook(path, data=None, target=None, model: Model | str | Path | Non
 
 def verify_workbook(path, engine: str = "embedded", tolerance: float = 1e-9):
     """Recalculate and compare like ``sheetnet verify``; the report's ``ok`` and ``to_dict()`` say the rest."""
-    from sheetnet.checks.verify import verify
 
     return verify(path, engine=engine, tolerance=tolerance)
 
 
 def audit_workbook(path, against=None):
     """Classified findings like ``sheetnet audit`` (``report.to_dict()`` is the JSON report)."""
-    from sheetnet.checks.audit import audit
 
     return audit(path, against=against)
 
 
 def extract_model(path, after_training: bool = False) -> Model:
     """The workbook's (possibly edited) model like ``sheetnet extract``."""
-    from sheetnet.checks.extract import extract
 
     return extract(path, after_training=after_training)[0]
 
@@ -123,14 +125,12 @@ def extract_model(path, after_training: bool = False) -> Model:
 def report_html(source, out, force: bool = False, data=None) -> Path:
     """The HTML report of a model file (``data``: a CSV whose points the plots show) or a workbook, like
     ``sheetnet report``."""
-    from sheetnet.htmlreport import write_report
 
     return write_report(source, out, force=force, data=data)
 
 
 def compare_learning_rates(data, target, rates, holdout: float | str = "auto", **train_options):
     """Runs at several learning rates from the same start, like ``sheetnet rates`` (a list of RateRun)."""
-    from sheetnet.rates import compare_rates
 
     run = settings(**{k: v for k, v in train_options.items() if k in SETTINGS})
     arch_options = {k: v for k, v in train_options.items() if k not in SETTINGS}

@@ -18,6 +18,7 @@ from pathlib import Path
 from sheetnet.book.build import Plan, from_fit, from_model, without_record, write_workbook
 from sheetnet.book.signing import key_id, key_readable_by_others, new_key_text, read_key
 from sheetnet.book.sizing import Requested
+from sheetnet.book.write import write_rate_book
 from sheetnet.checks.annotate import annotate
 from sheetnet.checks.audit import audit
 from sheetnet.checks.extract import extract
@@ -33,6 +34,7 @@ from sheetnet.errors import (
 )
 from sheetnet.files import check_output, write_atomic, write_text_atomic
 from sheetnet.flags import SETTING_FLAGS, architecture_from, command_parser, negative_values_attached, settings_from
+from sheetnet.htmlreport import Section, loss_plot, page, write_html, write_report
 from sheetnet.net import data as dataio
 from sheetnet.net.fit import FitOutcome, fit
 from sheetnet.net.metrics import evaluate
@@ -40,6 +42,7 @@ from sheetnet.net.model import load_model
 from sheetnet.net.score import score_table
 from sheetnet.net.train import TrainSettings, stored_settings
 from sheetnet.progress import Progress
+from sheetnet.rates import best, compare_rates, summary_rows
 from sheetnet.report import audit_lines, verify_lines
 from sheetnet.training_summary import metrics_lines, summary_lines
 
@@ -247,7 +250,6 @@ def cmd_extract(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
-    from sheetnet.htmlreport import write_report
 
     if args.data is not None and args.source.suffix.lower() != ".json":
         raise UsageError("--data goes with a model file; a workbook's report plots the data it holds")
@@ -258,9 +260,6 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 
 def cmd_rates(args: argparse.Namespace) -> int:
-    from sheetnet.book.write import write_rate_book
-    from sheetnet.htmlreport import Section, loss_plot, page, write_html
-    from sheetnet.rates import best, compare_rates, summary_rows
 
     for path, kind in ((args.out, "HTML report"), (args.workbook, "workbook")):
         if path:

@@ -14,6 +14,8 @@ from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils.multiclass import check_classification_targets, unique_labels
 from sklearn.utils.validation import check_is_fitted, validate_data
 
+from sheetnet.book.build import DEFAULT_MAX_CELLS, plan_workbook, write_workbook
+from sheetnet.book.sizing import Requested
 from sheetnet.net.activations import Activation
 from sheetnet.net.data import Table, fit_scaling
 from sheetnet.net.model import Model
@@ -80,8 +82,6 @@ class _SheetNet(BaseEstimator):
     def to_workbook(self, path, x=None, y=None, trace_epochs: int | None = None, force: bool = False) -> Path:
         """Write the fitted network's workbook; with ``x`` and ``y``, batch scoring of those rows (default: the
         training rows) and a training record replaying the fit from its initial weights."""
-        from sheetnet.book.build import DEFAULT_MAX_CELLS, plan_workbook, write_workbook
-        from sheetnet.book.sizing import Requested
 
         check_is_fitted(self, "model_")
         x = self._x_fit if x is None else np.asarray(validate_data(self, x, reset=False), dtype=float)

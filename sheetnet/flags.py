@@ -11,7 +11,8 @@ from pathlib import Path
 import numpy as np
 
 from sheetnet.book.build import DEFAULT_MAX_CELLS
-from sheetnet.checks.verify import DEFAULT_TOLERANCE, ENGINES
+from sheetnet.checks.tolerance import DEFAULT_TOLERANCE
+from sheetnet.checks.verify import ENGINES
 from sheetnet.errors import (
     UsageError,
 )

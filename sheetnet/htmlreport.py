@@ -6,20 +6,29 @@ from __future__ import annotations
 import base64
 import html
 import io
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
 
-from sheetnet.net.model import Model
+from sheetnet.book.guide import caution
+from sheetnet.book.numbers import compute
+from sheetnet.book.read import read_inputs, read_layout
+from sheetnet.book.untrusted import read_returned_workbook
+from sheetnet.checks.verify import verify
+from sheetnet.files import write_text_atomic
+from sheetnet.net import data as dataio
+from sheetnet.net.metrics import evaluate
+from sheetnet.net.model import Model, load_model
 from sheetnet.net.network import forward_pass, scaled_inputs
+from sheetnet.report import verify_lines
 
 
 def _figure():
-    import matplotlib
+    import matplotlib  # lazy: matplotlib costs about a second to import and only the HTML pages draw
 
     matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    import matplotlib.pyplot as plt  # lazy: matplotlib costs about a second to import and only the HTML pages draw
 
     return plt
 
@@ -105,7 +114,7 @@ def decision_plot(model: Model, x: np.ndarray | None, labels: list[str] | None) 
 def _class_regions(plt, ax, model: Model, g0, g1, y: np.ndarray, x: np.ndarray | None,
                    labels: list[str] | None) -> None:
     """Each class's predicted region in its own colour, the data's points in the colour of their class."""
-    from matplotlib.patches import Patch
+    from matplotlib.patches import Patch  # lazy: matplotlib costs about a second to import and only the HTML pages draw
 
     names = list(model.classes or model.outputs) if model.task != "multilabel" else list(model.outputs)
     if model.task == "binary":
@@ -204,7 +213,6 @@ def model_sections(model: Model, x: np.ndarray | None = None, labels: list[str] 
                    subject: str = "This report describes a model") -> list[Section]:
     """Loss per epoch, holdout metrics and confusion matrix, decision regions (two inputs) or else a
     drawing of the network. ``subject`` opens the caution (a model file's report, or a workbook's)."""
-    from sheetnet.book.guide import caution
 
     training = model.training or {}
     arch = " -> ".join([f"{len(model.inputs)} inputs", *(f"{layer.units} {layer.activation.name}"
@@ -246,21 +254,13 @@ def model_sections(model: Model, x: np.ndarray | None = None, labels: list[str] 
 
 
 def write_html(path: Path, text: str, force: bool) -> Path:
-    from sheetnet.files import write_text_atomic
 
     return write_text_atomic(Path(path), text, force=force)
 
 
 def book_sections(path: Path) -> list[Section]:
     """A workbook's report: its model, the training record's loss, holdout metrics, and its verification."""
-    from dataclasses import replace
 
-    from sheetnet.book.numbers import compute
-    from sheetnet.book.read import read_inputs, read_layout
-    from sheetnet.book.untrusted import read_returned_workbook
-    from sheetnet.checks.verify import verify
-    from sheetnet.net.metrics import evaluate
-    from sheetnet.report import verify_lines
 
     book = read_returned_workbook(path)
     layout, _ = read_layout(book)
@@ -292,7 +292,6 @@ def book_sections(path: Path) -> list[Section]:
 def data_points(model: Model, data: str | Path) -> tuple[np.ndarray, list[str] | None]:
     """A table's input columns (raw units) for a model's plots, and the class labels when the table
     holds the model's target."""
-    from sheetnet.net import data as dataio
 
     table = dataio.read_csv(data)
     x = dataio.feature_matrix(table, model.inputs)
@@ -305,7 +304,6 @@ def data_points(model: Model, data: str | Path) -> tuple[np.ndarray, list[str] |
 
 def write_report(source: str | Path, out: str | Path, force: bool = False, data: str | Path | None = None) -> Path:
     """The HTML report of a model file (.json; ``data`` adds its points to the plots) or a workbook (.xlsx)."""
-    from sheetnet.net.model import load_model
 
     source = Path(source)
     if source.suffix.lower() == ".json":

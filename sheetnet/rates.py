@@ -9,7 +9,7 @@ import numpy as np
 
 from sheetnet.errors import TrainingError
 from sheetnet.net import activations as act
-from sheetnet.net.data import Table, feature_matrix
+from sheetnet.net.data import Table, encode_targets, feature_matrix
 from sheetnet.net.fit import Architecture, fit
 from sheetnet.net.network import mean_loss, predict_outputs
 from sheetnet.net.train import TrainSettings
@@ -33,7 +33,6 @@ def _holdout_loss(outcome, table: Table) -> float | None:
     if not len(rows):
         return None
     model = outcome.model
-    from sheetnet.net.data import encode_targets
 
     x = feature_matrix(table, model.inputs)[rows]
     t = encode_targets(table, model.target, model.task, model.classes).values[rows]

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
-from sheetnet.checks.verify import Comparison, VerifyReport
+from sheetnet.checks.comparison import Comparison
+from sheetnet.checks.findings import KINDS
+from sheetnet.checks.verify import VerifyReport
 
 SHOWN = 5
 
@@ -89,7 +91,6 @@ AUDIT_TITLES = {"description": "Layout description", "signature": "Signature", "
 
 def audit_lines(report) -> list[str]:
     """Findings grouped by kind, most consequential first, and a one-line verdict."""
-    from sheetnet.checks.findings import KINDS
 
     lines = [f"auditing {report.path} against the {report.reference}"]
     for kind in KINDS:

@@ -97,7 +97,8 @@ def _excel_deviation(formula: str, cells: dict):
     a, b = cells.get((0, 0)), cells.get((0, 1))
     errors = any(isinstance(v, CellError) for v in cells.values())
     if formula.startswith("MAX(") and not errors and any(isinstance(v, str) for v in cells.values()):
-        # Microsoft Support, "MAX function": text inside a reference is ignored (REFERENCES §7, confirmed);
+        # OASIS OpenFormula (ODF 1.2 Part 2, 2011) 6.18.45 and Microsoft Support, "MAX function": text in a
+        # reference is ignored;
         # the formulas package gives #VALUE! for numeric text such as "3".
         numbers = [v for v in cells.values() if isinstance(v, float)] + ([0.0] if "0)" in formula else [])
         return max(numbers) if numbers else 0.0

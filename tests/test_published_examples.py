@@ -7,7 +7,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy.optimize import linprog
 
 from sheetnet.net.activations import Activation
 from sheetnet.net.model import Layer, Model, load_model
@@ -64,22 +63,19 @@ def test_two_layer_threshold_xor():
     assert predict_outputs(_model([hidden, out], 2, 1), XOR_X)[:, 0].tolist() == XOR_T.tolist()
 
 
-def test_no_single_threshold_unit_computes_xor():
-    # Outside check: Minsky & Papert, Perceptrons (MIT Press 1969): XOR is not linearly separable.
-    # LP: find (w1, w2, b) with (2t-1)(w.x + b) >= 1 for all four patterns -> infeasible (status 2).
-    signs = 2 * XOR_T - 1
-    a_ub = -signs[:, None] * np.hstack([XOR_X, np.ones((4, 1))])
-    result = linprog(np.zeros(3), A_ub=a_ub, b_ub=-np.ones(4), bounds=[(None, None)] * 3)
-    assert result.status == 2
-
-
-def test_single_logistic_unit_stays_at_three_quarters_on_xor():
-    # Minsky & Papert (1969): a single linear unit gets at most 3 of the 4 XOR patterns right.
-    unit = Layer(np.array([[0.1, -0.2]]), np.array([0.05]), Activation("sigmoid"))
+def test_a_single_logistic_unit_on_xor_ends_at_the_symmetric_optimum():
+    """Minsky & Papert, Perceptrons (MIT Press 1969): no single linear unit separates XOR. For a
+    logistic unit under cross-entropy the loss is convex and, XOR being symmetric, w = 0, b = 0 (every
+    output 0.5, loss ln 2) makes the gradient sum (y - t) x vanish: it is the unique optimum (Bishop,
+    PRML, Springer 2006, section 4.3.2, eq. 4.91, equation number from memory). The trainer, started
+    away from it, must arrive there."""
+    unit = Layer(np.array([[0.8, -1.3]]), np.array([0.4]), Activation("sigmoid"))
     model = _model([unit], 2, 1, loss="cross-entropy")
-    trained = train(model, XOR_X, XOR_T[:, None], TrainSettings(0.5, 2000, None, False)).model
-    accuracy = np.mean((predict_outputs(trained, XOR_X)[:, 0] >= 0.5) == XOR_T)
-    assert accuracy <= 0.75
+    result = train(model, XOR_X, XOR_T[:, None], TrainSettings(0.5, 3000, None, False))
+    y = predict_outputs(result.model, XOR_X)[:, 0]
+    assert np.allclose(y, 0.5, atol=1e-4), y
+    assert result.epoch_loss[-1] == pytest.approx(np.log(2), abs=1e-7)
+    assert result.epoch_loss[0] > result.epoch_loss[-1] + 0.05
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])

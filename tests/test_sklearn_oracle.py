@@ -2,7 +2,9 @@
 
 Outside check: scikit-learn 1.x, sklearn/neural_network (Pedregosa et al., JMLR 12:2825-2830, 2011,
 from memory): SGD with momentum 0, constant learning rate, batch-mean gradients, L2 alpha*W/n_batch.
-Recipe and conventions: the project's REFERENCES §5; tolerance atol 1e-12 (common practice).
+Conventions as scikit-learn's sources state them (coefs_ of shape (fan_in, fan_out), output delta
+activations - y, batch-mean gradients, one fit with max_iter=1 runs one epoch); tolerance atol 1e-12
+(common practice).
 """
 
 from __future__ import annotations

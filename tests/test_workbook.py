@@ -140,7 +140,8 @@ def test_formula_limits_hold(tmp_path, run_cli):
     book = build(tmp_path, run_cli, *CONFIGS["softmax-squared-two-layers"])
     for formula in formula_cells(book).values():
         # Limits: Microsoft Support, "Excel specifications and limits": 8,192 characters, 64 nesting levels,
-        # 255 arguments per function (the last two secondary, per the project's REFERENCES §8).
+        # 255 arguments per function (Microsoft Support, "Excel specifications and limits"; the last two
+        # limits as secondary sources state them).
         assert len(formula) <= 8192
         depth, deepest, args = 0, 0, [0]
         for token in Tokenizer(formula).items:
@@ -246,3 +247,37 @@ def test_hand_written_model_without_target_key_gets_a_training_record(tmp_path, 
     code, stdout, err = run_cli("build", "--model", tmp_path / "m.json", data, "--epochs", "2", "-o", out)
     assert code == 0 and "training record of 12 rows" in stdout, err
     assert "Training record" in openpyxl.load_workbook(out).sheetnames
+
+
+def test_the_xlsxwriter_internals_the_writer_overrides_are_there():
+    """book/write.py overrides private XlsxWriter methods (pinned to >=3.1,<3.4 in pyproject.toml); a
+    version that renames or reshapes them must fail here, loudly, not write 15-digit numbers quietly."""
+    import inspect
+
+    from xlsxwriter.worksheet import Worksheet
+
+    assert list(inspect.signature(Worksheet._prepare_formula).parameters)[:2] == ["self", "formula"]
+    assert list(inspect.signature(Worksheet._xml_number_element).parameters) == ["self", "number", "attributes"]
+    assert list(inspect.signature(Worksheet._check_dimensions).parameters)[:3] == ["self", "row", "col"]
+    assert "current_row_num" in inspect.signature(Worksheet._write_single_row).parameters
+
+
+def test_numbers_are_written_to_round_trip(tmp_path):
+    """IEEE 754 binary64 needs 17 significant digits to round-trip (IEEE Std 754-2008, section 5.12.2,
+    clause from memory; reproduced here with Python floats):
+    a number the writer stores reads back bit for bit."""
+    import zipfile
+
+    import xlsxwriter
+
+    from sheetnet.book.write import _Sheet
+
+    values = [0.1 + 0.2, 1 / 3, 2.0 ** -1074, 1.7976931348623157e308, -123456.78901234567]
+    book = xlsxwriter.Workbook(tmp_path / "n.xlsx", {"constant_memory": True})
+    sheet = book.add_worksheet("n", worksheet_class=_Sheet)
+    for row, value in enumerate(values):
+        sheet.write_number(row, 0, value)
+    book.close()
+    xml = zipfile.ZipFile(tmp_path / "n.xlsx").read("xl/worksheets/sheet1.xml").decode()
+    found = [float(v) for v in re.findall(r"<v>([^<]+)</v>", xml)]
+    assert found == values

@@ -7,7 +7,7 @@ from __future__ import annotations
 import html
 import re
 
-from sheetnet.book.addresses import column_index
+from sheetnet.book.addresses import column_index, column_letters
 from sheetnet.book.xlsxcells import CellError, SheetCells
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.parallel import Background, can_fork
@@ -189,7 +189,6 @@ _TRANSLATE = re.compile(
 
 def translate(formula: str, rows: int, cols: int) -> str:
     """Shift the relative references of a formula (a shared formula's master, moved to a dependent)."""
-    from sheetnet.book.addresses import column_letters
 
     def shift(match: re.Match) -> str:
         if match.group(1):

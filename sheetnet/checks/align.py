@@ -42,6 +42,7 @@ from sheetnet.book.layout import BookLayout, Table, build_layout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs_checked
 from sheetnet.book.spec import BookInputs
+from sheetnet.book.untrusted import layout_extents
 from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.alignment import Alignment, Change, SheetMap, describe_changes
 from sheetnet.errors import SheetNetError, WorkbookFormatError
@@ -76,7 +77,6 @@ def light_entries(layout: BookLayout, inputs: BookInputs) -> list[tuple[str, Ent
 def looks_unmoved(book: Workbook, layout: BookLayout) -> bool:
     """Every sheet under its name, every defined name on its block, every sheet's extent as built,
     every table header in place and every table row label where it was written."""
-    from sheetnet.book.untrusted import layout_extents
 
     if any(sheet not in book.sheets for sheet in layout.sheet_names()):
         return False
@@ -152,7 +152,6 @@ def guide_entries(layout: BookLayout) -> list[tuple[str, Entry]]:
 
 
 def _extents(layout: BookLayout) -> dict[str, tuple[int, int]]:
-    from sheetnet.book.untrusted import layout_extents
 
     return {sheet: (e.last_row, e.last_col) for sheet, e in layout_extents(layout).items()}
 

@@ -25,7 +25,7 @@ FINDINGS_SHEET = "Audit findings"
 
 def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) -> Path:
     """Write the annotated copy to ``out`` (atomically)."""
-    import openpyxl
+    import openpyxl  # lazy: openpyxl is needed only for the annotated copy
     from openpyxl.comments import Comment
     from openpyxl.styles import Font, PatternFill
     from openpyxl.worksheet.hyperlink import Hyperlink

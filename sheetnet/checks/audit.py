@@ -30,6 +30,7 @@ from sheetnet.checks.audit_cells import check_formulas, check_guide, check_input
 from sheetnet.checks.findings import KINDS, AuditReport, Finding
 from sheetnet.checks.tolerance import DEFAULT_TOLERANCE
 from sheetnet.checks.verify import by_cell, compare_engines, engine_values, expected_formulas
+from sheetnet.engines.formulaspkg import check_size
 from sheetnet.errors import SheetNetError, WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
@@ -129,8 +130,6 @@ def _audit(path: Path, against: Path | None, key: bytes | None, engine_name: str
     if against is None and reference.original is not None:
         _check_fingerprints(report, own, entries)
     if engine_name == "formulas":
-        from sheetnet.engines.formulaspkg import check_size
-
         check_size(book)
     engine = Background(engine_values, book, engine_name)
     try:

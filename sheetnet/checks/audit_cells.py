@@ -10,7 +10,7 @@ import re
 from collections import Counter
 
 from sheetnet.book import layout as L
-from sheetnet.book.addresses import Cell, a1, parse_a1
+from sheetnet.book.addresses import Cell, a1, defined_name_target, parse_a1
 from sheetnet.book.canonical import same_formula, same_value, target_text
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
@@ -56,7 +56,6 @@ def _inserted_content(book: Workbook, alignment: Alignment, change) -> str:
 
 
 def _check_names(report: AuditReport, book: Workbook, layout: BookLayout, alignment: Alignment) -> None:
-    from sheetnet.book.addresses import defined_name_target
 
     expected = {}
     for name, block in layout.defined_names().items():

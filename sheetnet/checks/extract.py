@@ -25,6 +25,7 @@ from sheetnet.book.untrusted import read_returned_workbook
 from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.align import alignment_for, light_entries
 from sheetnet.checks.alignment import Alignment
+from sheetnet.engines.embedded import recalculate
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model
@@ -99,7 +100,6 @@ def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built:
         if _formulas_as_built(book, layout, numbers, alignment):
             note = "parameters after training: the reference trainer's (the record's inputs and formulas are as built)"
             return numbers.record.trace[-1].after, note
-    from sheetnet.engines.embedded import recalculate
 
     found = recalculate(book).values(book)
     locate = (lambda cell: cell) if alignment is None else alignment.locate

@@ -22,6 +22,7 @@ from sheetnet.book.addresses import a1
 from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.checks.tolerance import agree
+from sheetnet.engines.embedded import Engine
 
 #: Relative nudge of the starting parameters: about 45 units in the last place, ten times or more
 #: the rounding differences between engines that accumulate along a step (about 1e-16 relative per
@@ -97,7 +98,6 @@ def unstable_cells(expected: Expected, nudged: list[Expected], tolerance: float)
 def check_one_at_a_time(book: Workbook, expected: Expected, unstable: Unstable, tolerance: float) -> None:
     """Evaluate each unstable formula on the reference values of the formula cells it reads (the
     embedded engine) and record where the result still differs from the reference."""
-    from sheetnet.engines.embedded import Engine
 
     given: dict[str, dict[tuple[int, int], object]] = {}
     targets, references = [], []

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 
 from sheetnet.book.xlsxcells import CellError
 from sheetnet.engines import xlfuncs as xf
+from sheetnet.engines import xlvalues as xv
 
 WIDTH = 16_384  # cell key = row * WIDTH + col
 MISSING = object()
@@ -43,11 +44,11 @@ def V(store: Store, row: int, col: int):
             raise NotReady(store, key)
         return None
     if type(value) is CellError:
-        raise xf.XlErr(value.code)
+        raise xv.XlErr(value.code)
     return value
 
 
-def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xf.Arr:
+def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xv.Arr:
     """A block of values (errors kept as elements)."""
     get = store.out.get
     if r0 == r1:
@@ -57,7 +58,7 @@ def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xf.Arr:
         values = [get(row * WIDTH + col, MISSING) for row in range(r0, r1 + 1) for col in range(c0, c1 + 1)]
     if MISSING in values:
         values = _fill(store, values, r0, c0, c1)
-    return xf.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
+    return xv.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
 
 
 def _fill(store: Store, values: list, r0: int, c0: int, c1: int) -> list:
@@ -73,12 +74,12 @@ def _fill(store: Store, values: list, r0: int, c0: int, c1: int) -> list:
 
 
 def raise_error(code: str):
-    raise xf.XlErr(code)
+    raise xv.XlErr(code)
 
 
-RUNTIME = {name: getattr(xf, name) for name in dir(xf) if name.startswith(("op_", "f_"))}
-RUNTIME.update(ADD=xf.add, SUB=xf.sub, MUL=xf.mul, DIV2=xf.divide, POW2=xf.raise_to,
-               V=V, A=A, N=xf.num, T=xf.text, TRUTH=xf.truth, DIV=xf.div, POW=xf.power, CMP=xf.compare,
-               EW=xf.elementwise, M=xf.mapped, RAISE=raise_error, neg=lambda x: -xf.num(x))
+RUNTIME = {name: getattr(module, name) for module in (xf, xv) for name in dir(module) if name.startswith(("op_", "f_"))}
+RUNTIME.update(ADD=xv.add, SUB=xv.sub, MUL=xv.mul, DIV2=xv.divide, POW2=xv.raise_to,
+               V=V, A=A, N=xv.num, T=xv.text, TRUTH=xv.truth, DIV=xv.div, POW=xv.power, CMP=xv.compare,
+               EW=xv.elementwise, M=xv.mapped, RAISE=raise_error, neg=lambda x: -xv.num(x))
 
 

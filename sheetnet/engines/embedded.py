@@ -21,7 +21,7 @@ from operator import itemgetter
 
 from sheetnet.book.addresses import column_index
 from sheetnet.book.xlsxcells import CellError, Workbook
-from sheetnet.engines import xlfuncs as xf
+from sheetnet.engines import xlvalues as xv
 from sheetnet.engines.cellstore import RUNTIME, WIDTH, NotReady, Store, V
 from sheetnet.engines.compiler import REFERENCE, RUNS, FormulaCompiler, FormulaParser, Unsupported
 from sheetnet.engines.general_path import GeneralPath
@@ -219,28 +219,28 @@ def _evaluate(function, row: int, runs: tuple):
     try:
         value = function(row, runs)
         return value if type(value) is float and value - value == 0.0 else _result(value)
-    except xf.XlErr as err:
+    except xv.XlErr as err:
         return CellError(err.code)
     except (OverflowError, ValueError, ZeroDivisionError):
         return CellError("#NUM!")
 
 
 def _single(value):
-    if type(value) is xf.Arr:
+    if type(value) is xv.Arr:
         if value.rows * value.cols != 1:
-            raise xf.XlErr("#VALUE!")
-        return xf.raise_if_error(value.values[0])
+            raise xv.XlErr("#VALUE!")
+        return xv.raise_if_error(value.values[0])
     return value
 
 
 def _result(value):
     if type(value) is float:
         if value - value != 0.0:
-            raise xf.XlErr("#NUM!")
+            raise xv.XlErr("#NUM!")
         return value
     if type(value) is int:
         return float(value)
-    if type(value) is xf.Arr:
+    if type(value) is xv.Arr:
         return _single(value)
     return value
 
@@ -252,7 +252,7 @@ class _ErrorCell:
         self.code = code
 
     def __call__(self, _row: int, _runs: tuple = ()):
-        raise xf.XlErr(self.code)
+        raise xv.XlErr(self.code)
 
 
 def recalculate(book: Workbook) -> Recalculation:

@@ -41,7 +41,7 @@ def recalculate(book: Workbook) -> dict[str, dict[tuple[int, int], object]]:
     """Every formula cell's value as the `formulas` package computes it, per sheet."""
     check_size(book)
     os.environ.setdefault("TQDM_DISABLE", "1")
-    import formulas
+    import formulas  # lazy: the formulas package costs seconds to import and only this engine or path needs it
 
     path = Path(book.path).resolve()
     with warnings.catch_warnings():

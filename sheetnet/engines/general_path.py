@@ -6,9 +6,11 @@ from __future__ import annotations
 import os
 import re
 
+import numpy as np
+
 from sheetnet.book.addresses import column_index
 from sheetnet.book.xlsxcells import CellError
-from sheetnet.engines import xlfuncs as xf
+from sheetnet.engines import xlvalues as xv
 from sheetnet.engines.cellstore import A
 from sheetnet.engines.compiler import RANGE
 from sheetnet.errors import EvaluationError
@@ -19,7 +21,7 @@ class GeneralPath:
 
     def __init__(self, engine, sheet: str, formula: str) -> None:
         os.environ.setdefault("TQDM_DISABLE", "1")
-        import formulas
+        import formulas  # lazy: the formulas package costs seconds to import and only this engine or path needs it
 
         self.engine, self.sheet, self.formula = engine, sheet, formula
         try:
@@ -41,7 +43,7 @@ class GeneralPath:
         return store, r0, c0, int(match.group(9)) - 1, column_index(match.group(7).upper())
 
     def __call__(self, _row: int, _runs: tuple = ()):
-        import numpy as np
+        # lazy: the formulas package costs seconds to import and only this engine or path needs it
         from formulas.tokens.operand import XlError
 
         args = []
@@ -53,7 +55,7 @@ class GeneralPath:
         result = self.function(*args)
         value = result.ravel()[0] if hasattr(result, "ravel") else result
         if isinstance(value, XlError):
-            raise xf.XlErr(str(value))
+            raise xv.XlErr(str(value))
         if isinstance(value, np.bool_ | bool):
             return bool(value)
         if isinstance(value, np.generic):
@@ -63,11 +65,12 @@ class GeneralPath:
 
 def _to_formulas(value):
     if type(value) is CellError:
+        # lazy: the formulas package costs seconds to import and only this engine or path needs it
         from formulas.tokens.operand import XlError
 
         return XlError(value.code)
     if value is None:
-        import schedula  # the `formulas` package's own marker of an empty cell
+        import schedula  # lazy: loaded with the `formulas` package; its own marker of an empty cell
 
         return schedula.EMPTY
     return value

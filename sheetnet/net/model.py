@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 
 from sheetnet.errors import ModelFileError
+from sheetnet.files import write_text_atomic
 from sheetnet.net.activations import Activation, check_pair
 
 FORMAT = "sheetnet-model"
@@ -116,7 +117,6 @@ class Model:
         return json.dumps(self.to_dict(), indent=2, allow_nan=False) + "\n"
 
     def save(self, path: str | Path, force: bool = False) -> Path:
-        from sheetnet.files import write_text_atomic
 
         return write_text_atomic(Path(path), self.to_json(), force=force)
 

@@ -41,7 +41,7 @@ def score_table(model: Model, table: dataio.Table, threshold: float = 0.5, keep_
     A score column whose name the table already uses gets a ``_score`` suffix."""
     x = dataio.feature_matrix(table, model.inputs)
     y = predict_outputs(model, x)
-    import pandas as pd  # imported here: the other commands start faster without it
+    import pandas as pd  # lazy: the other commands start faster without it
 
     kept = table.header if keep_other_columns else model.inputs
     frame = pd.DataFrame({name: table.column(name) for name in kept})

@@ -20,6 +20,7 @@ from sheetnet.book.layout import (
 )
 from sheetnet.book.numbers import Numbers, Scored, correct_cases
 from sheetnet.book.spec import BookSpec
+from sheetnet.net.network import Pass
 
 #: Reuse the formula text of a record row for every later row of the same shape (see ``_RowShapes``).
 SHAPED_RECORD_ROWS = True
@@ -160,7 +161,6 @@ def _record_row(layout: BookLayout, numbers: Numbers, s: int, first: int, count:
 
 
 def _pass(step):
-    from sheetnet.net.network import Pass
 
     return Pass(z=step.z, a=step.a)
 
