@@ -9,11 +9,13 @@ import json
 from pathlib import Path
 
 import numpy as np
+import openpyxl
 import pytest
 
 from sheetnet.book.addresses import a1, cell_name
 from sheetnet.book.read import read_layout
 from sheetnet.book.xlsxread import read_workbook
+from sheetnet.engines.libreoffice import recalculate as libreoffice_recalculate
 from tests.conftest import write_csv
 from tests.lo_edit import edit_in_libreoffice
 
@@ -103,9 +105,13 @@ def test_inserted_data_row_and_a_number_typed_over_a_formula(built, tmp_path, ru
     ([{"op": "delete_rows", "sheet": "Scoring", "at": 0, "count": 2}], "2 row(s) deleted at row 1 of Scoring"),
     ([{"op": "insert_rows", "sheet": "Guide", "at": 5, "count": 1}], "1 row(s) inserted at row 6 of Guide"),
     ([{"op": "insert_rows", "sheet": "Parameters", "at": 13, "count": 1}], "1 row(s) inserted at row 14"),
+    # A name that looks like a cell reference: LibreOffice writes references to it unquoted (P2!$B$5)
+    ([{"op": "rename", "sheet": "Parameters", "to": "P2"}], "'Parameters' was renamed to 'P2'"),
+    ([{"op": "rename", "sheet": "Training setup", "to": "TS1"}], "'Training setup' was renamed to 'TS1'"),
 ], ids=["rows above parameters", "column in parameters", "columns in record", "parameters renamed",
         "record renamed", "block moved", "rows in calculator", "block moved to another sheet", "column before A",
-        "rows above row 1", "title rows deleted", "row in the guide", "row inside a parameter block"])
+        "rows above row 1", "title rows deleted", "row in the guide", "row inside a parameter block",
+        "renamed like a cell", "setup renamed like a cell"])
 def test_structural_edits_are_followed(operations, words, built, tmp_path, run_cli):
     edited = _edited(built, tmp_path, operations)
     code, report = _audit(run_cli, edited)
@@ -136,6 +142,27 @@ def test_sorted_data_rows(built, tmp_path, run_cli):
     assert not report["formula_edits"] and not report["input_edits"]
     code, _out, err = run_cli("verify", edited)
     assert code == 2 and "reordered" in err and "sheetnet audit" in err and len(err.strip().splitlines()) == 1
+    # The record now trains on other cases: extract --after-training takes what the workbook computes
+    # (as LibreOffice recalculates it on load; the values it saved right after the sort can be stale),
+    # not the trainer's run on the original order.
+    code, out, err = run_cli("extract", edited, "--after-training", "-o", tmp_path / "m.json")
+    assert code == 0 and "recalculated" in out, err
+    final_w = layout.final.weights[0]
+    recalculated = libreoffice_recalculate(edited, tmp_path / "lo")
+    saved = openpyxl.load_workbook(recalculated, data_only=True)[final_w.sheet]
+    in_file = [[saved.cell(final_w.top + i + 1, final_w.left + j + 1).value for j in range(final_w.ncols)]
+               for i in range(final_w.nrows)]
+    extracted = json.loads((tmp_path / "m.json").read_text())["layers"][0]["weights"]
+    assert np.allclose(extracted, in_file, rtol=1e-9, atol=1e-12)
+
+
+def test_a_number_typed_over_a_final_parameter_is_extracted(built, tmp_path, run_cli):
+    final_w = built["layout"].final.weights[0]
+    edited = _edited(built, tmp_path, [{"op": "value", "sheet": final_w.sheet, "cell": a1(final_w.top, final_w.left),
+                                        "value": 1.5}])
+    code, _out, err = run_cli("extract", edited, "--after-training", "-o", tmp_path / "m.json")
+    assert code == 0, err
+    assert json.loads((tmp_path / "m.json").read_text())["layers"][0]["weights"][0][0] == 1.5
 
 
 def test_deleted_data_row(built, tmp_path, run_cli):

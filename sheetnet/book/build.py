@@ -251,7 +251,7 @@ def plan_workbook(model: Model, table: dataio.Table, settings: TrainSettings | N
     needed = np.array([c for step in record.steps for c in step] if record else [], dtype=int)
     cases = scoring_sample(len(table.rows), extent.scoring, needed)
     sample = _subset(table, cases)
-    notes = describe_extent(extent, size, len(cases), len(table.rows))
+    notes = describe_extent(extent, size, len(cases), len(table.rows), requested)
     lines = provenance(model, table, run if record else None, extent, metrics, extra)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
     return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial, spec.record), tuple(notes))

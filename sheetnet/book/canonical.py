@@ -18,13 +18,22 @@ _STRING = re.compile(r'("(?:[^"]|"")*")')
 
 
 def normalize_formula(text: str) -> str:
-    """Formula text compared without '=', spaces, case of names or the spelling of numbers
-    (LibreOffice writes 1E-12 as 1E-012)."""
+    """Formula text compared without '=', spaces, case of names, quotes around sheet names or the
+    spelling of numbers (LibreOffice writes 1E-12 as 1E-012)."""
     text = text[1:] if text.startswith("=") else text
     text = _SPACE_OUTSIDE_STRINGS.sub(lambda m: m.group(1) or "", text)
     text = _NUMBER.sub(lambda m: m.group(1) or repr(float(m.group(2))), text)
     parts = _STRING.split(text)
-    return "".join(p if p.startswith('"') else p.upper().replace("_XLFN.", "") for p in parts)
+    return "".join(p if p.startswith('"') else _unquoted_sheets(p.upper().replace("_XLFN.", "")) for p in parts)
+
+
+_QUOTED_SHEET = re.compile(r"'((?:[^']|'')+)'!")
+
+
+def _unquoted_sheets(text: str) -> str:
+    """Sheet names without their quotes: LibreOffice leaves a name such as P2 or TS1 unquoted where
+    sheetnet (and Excel) quote it because it looks like a cell reference."""
+    return _QUOTED_SHEET.sub(lambda m: m.group(1).replace("''", "'") + "!", text)
 
 
 def same_formula(found: str, expected: str, sheet: str) -> bool:

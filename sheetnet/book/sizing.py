@@ -136,14 +136,17 @@ def scoring_sample(n_cases: int, size: int | None, needed: np.ndarray) -> np.nda
     return np.array(sorted(chosen), dtype=int)
 
 
-def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int) -> list[str]:
-    """One line each for what was left out, and how to record more."""
+def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int,
+                    requested: Requested = Requested()) -> list[str]:
+    """One line each for what was left out (and whether the flags or the cap chose it), and how to
+    record more."""
     lines = []
     if extent.epochs and (extent.epochs < costs.epochs or extent.rows < costs.n_train):
         rows = "all" if extent.rows >= costs.n_train else f"the first {extent.rows:,} of {costs.n_train:,}"
+        asked = requested.epochs is not None and (requested.rows is not None or extent.rows >= costs.n_train)
+        why = "as the flags asked" if asked else f"to fit {costs.cap:,} formula cells"
         lines.append(f"the training record replays epochs 1-{extent.epochs} of {costs.epochs} on {rows} training "
-                     f"rows (to fit {costs.cap:,} formula cells); record more with --trace-epochs / --trace-rows "
-                     "and --max-cells")
+                     f"rows ({why}); record more with --trace-epochs / --trace-rows and --max-cells")
     if sample < all_cases:
         lines.append(f"the Scoring sheet holds {sample:,} of the {all_cases:,} cases (the record's cases and evenly "
                      "spaced others); its summary is over those; metrics over every case are in the Guide; "

@@ -127,6 +127,12 @@ def _sheet_risks(report: AuditReport, name: str, cells: SheetCells) -> None:
         report.add(Finding(name, a1(*errors[0]), "risks", None, len(errors),
                            f"{len(errors):,} cell(s) on {name} show spreadsheet errors ({', '.join(codes)}), "
                            f"the first at {a1(*errors[0])}"))
+    blank = sorted(pos for pos in cells.formulas if cells.values.get(pos) is None)
+    if blank:  # one finding a sheet: a program that does not calculate saved the file
+        report.add(Finding(name, a1(*blank[0]), "risks", None, len(blank),
+                           f"{len(blank):,} formula cell(s) on {name} hold no saved value, the first at "
+                           f"{a1(*blank[0])}: viewers that do not recalculate show them blank; opening and "
+                           "saving the file in a spreadsheet application fills them"))
     for pos, value in cells.values.items():
         if value is not None and (pos[0] in cells.hidden_rows or pos[1] in cells.hidden_cols):
             report.add(Finding(name, a1(*pos), "risks", None, plain(value), "content in a hidden row or column"))

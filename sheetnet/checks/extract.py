@@ -95,7 +95,8 @@ def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built:
     the record uses and every formula are as built; else recalculated from the file."""
     if layout.final is None:
         raise WorkbookFormatError(f"{book.path}: the workbook has no training record to take parameters from")
-    if built is not None and _record_inputs_as_built(inputs, built):
+    sorted_rows = alignment is not None and alignment.reordered  # the record then reads other cases
+    if built is not None and not sorted_rows and _record_inputs_as_built(inputs, built):
         numbers = compute(layout.spec, built)
         if _formulas_as_built(book, layout, numbers, alignment):
             note = "parameters after training: the reference trainer's (the record's inputs and formulas are as built)"
@@ -109,7 +110,7 @@ def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built:
         for i in range(block.nrows):
             for j in range(block.ncols):
                 where = locate(block.cell(i, j))
-                value = None if where is None else found.get(where.sheet, {}).get((where.row, where.col))
+                value = None if where is None else _value_now(book, found, where)
                 if not isinstance(value, float) or not np.isfinite(value):
                     raise WorkbookFormatError(f"{book.path}: {cell_name(where or block.cell(i, j))} does not hold a "
                                               "number after recalculation")
@@ -120,6 +121,14 @@ def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built:
     layers = tuple(Layer(read(w), read(b)[:, 0], act)
                    for w, b, act in zip(final.weights, final.bias, layout.spec.activations, strict=True))
     return layers, "parameters after training recalculated with the embedded engine (the workbook was edited)"
+
+
+def _value_now(book: Workbook, recalculated: dict, cell: Cell):
+    """A cell's recalculated value, or the number typed over its formula."""
+    sheet = book.sheets.get(cell.sheet)
+    if sheet is not None and (cell.row, cell.col) not in sheet.formulas:
+        return sheet.values.get((cell.row, cell.col))
+    return recalculated.get(cell.sheet, {}).get((cell.row, cell.col))
 
 
 def _record_inputs_as_built(inputs: BookInputs, built: BookInputs) -> bool:
