@@ -156,6 +156,21 @@ def test_sorted_data_rows(built, tmp_path, run_cli):
     assert np.allclose(extracted, in_file, rtol=1e-9, atol=1e-12)
 
 
+def test_a_relative_reference_carried_above_the_first_row_by_a_sort_is_ref():
+    """In a sort, a relative reference travels with its row (LibreOffice's default); one carried above
+    the sheet's first row is #REF! in the application, so the expected text is #REF! too, never a row 0
+    or a negative row."""
+    from sheetnet.book.addresses import Cell
+    from sheetnet.checks.alignment import Alignment, SheetMap
+
+    sheet = SheetMap("S", np.arange(7)[::-1].copy(), np.arange(10), reordered=frozenset(range(7)))
+    alignment = Alignment(sheets={"S": sheet})
+    # Written at row 7 (index 6), now at row 1: "one row up" and a range "two rows up" are above row 1.
+    assert alignment.translate("=B6+SUM(C5:D5)", Cell("S", 6, 0)) == "=#REF!+SUM(#REF!)"
+    # Written at row 1, now at row 7: "one row down" is row 8.
+    assert alignment.translate("=B2", Cell("S", 0, 0)) == "=B8"
+
+
 def test_a_number_typed_over_a_final_parameter_is_extracted(built, tmp_path, run_cli):
     final_w = built["layout"].final.weights[0]
     edited = _edited(built, tmp_path, [{"op": "value", "sheet": final_w.sheet, "cell": a1(final_w.top, final_w.left),

@@ -173,7 +173,8 @@ class Alignment:
         if m.reordered and row in m.reordered:
             if self._moves_with_sort(m, here, sheet, row) and not absolute_row:
                 moved_here = m.row(here.row)  # a relative reference moves with its row in a sort
-                return None if moved_here < 0 or m.col(col) < 0 else (moved_here + row - here.row, m.col(col))
+                now = moved_here + row - here.row  # above the sheet's first row it is #REF!
+                return None if moved_here < 0 or now < 0 or m.col(col) < 0 else (now, m.col(col))
             return (row, m.col(col)) if m.col(col) >= 0 else None  # from outside: the position is kept
         r, c = m.row(row), m.col(col)
         return None if r < 0 or c < 0 else (r, c)
