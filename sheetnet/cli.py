@@ -33,7 +33,14 @@ from sheetnet.errors import (
     WorkbookFormatError,
 )
 from sheetnet.files import check_output, write_atomic, write_text_atomic
-from sheetnet.flags import SETTING_FLAGS, architecture_from, command_parser, negative_values_attached, settings_from
+from sheetnet.flags import (
+    SETTING_FLAGS,
+    architecture_from,
+    build_defaults,
+    command_parser,
+    negative_values_attached,
+    settings_from,
+)
 from sheetnet.htmlreport import Section, loss_plot, page, write_html, write_report
 from sheetnet.net import data as dataio
 from sheetnet.net.fit import FitOutcome, fit
@@ -145,17 +152,44 @@ def _model_plan(args: argparse.Namespace, requested: Requested):
     model = load_model(args.model)
     table = dataio.read_csv(args.data) if args.data else None
     if args.target:
+        _check_target_flag(model, table, args.target, args.model)
         model = replace(model, target=args.target)
-    stored = stored_settings(model)
+    stored = stored_settings(model, str(args.model))
     settings = settings_from(args, stored) if table is not None else None
     plan = from_model(model, table, settings, requested, args.max_cells)
+    defaults = build_defaults()
+    ignored = [flag for flag in MODEL_FIXES if getattr(args, _dest(flag)) != defaults[_dest(flag)]]
+    if ignored:
+        plan = replace(plan, notes=(*plan.notes, f"{', '.join(ignored)} ignored: the model file fixes them"))
     if plan.spec.record is not None:
         source = "the model's stored settings" if stored is not None else "the defaults (the model file stores no " \
             "training settings)"
         given = [f"--{flag.replace('_', '-')}" for flag in SETTING_FLAGS if getattr(args, flag) is not None]
+        if getattr(args, "batch_full", False):
+            given.append("--batch-size")
         plan = replace(plan, notes=(*plan.notes, f"the training record continues from the model's weights with "
                                                  f"{source}" + (f", except {', '.join(given)}" if given else "")))
     return plan
+
+
+#: Flags of training that a given model fixes (its architecture, scaling and data split).
+MODEL_FIXES = ("--hidden", "--activation", "--steepness", "--midpoint", "--output", "--loss", "--task", "--scale",
+               "--holdout", "--init", "--inputs")
+
+
+def _check_target_flag(model, table, target: tuple[str, ...], path: Path) -> None:
+    """--target with --model names the data's column(s) holding the model's target(s): as many as the
+    model has outputs' targets, and present in the data."""
+    if len(target) != max(1, len(model.target)):
+        raise UsageError(f"--target names {len(target)} column(s), and the model in {path} has "
+                         f"{max(1, len(model.target))} target(s)")
+    missing = [name for name in target if table is not None and name not in table.header]
+    if missing:
+        raise UsageError(f"--target {missing[0]!r}: no such column in {table.source}")
+
+
+def _dest(flag: str) -> str:
+    return flag.lstrip("-").replace("-", "_")
 
 
 def cmd_demo(args: argparse.Namespace) -> int:

@@ -28,7 +28,8 @@ class _DefaultsShown(argparse.HelpFormatter):
     def _get_help_string(self, action: argparse.Action) -> str:
         text = action.help or ""
         default = action.default
-        if "default" in text or default in (None, False, argparse.SUPPRESS) or not action.option_strings:
+        if "default" in text or default is None or default is False or default == argparse.SUPPRESS \
+                or not action.option_strings:
             return text
         shown = "none" if default == () else ",".join(map(str, default)) if isinstance(default, tuple) else default
         return f"{text} (default: {shown})".lstrip()
@@ -96,7 +97,23 @@ def _count(text: str) -> int:
 
 
 def _count_or_zero(text: str) -> int:
-    return 0 if text.strip() == "0" else _count(text)
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"must be >= 0 (0: none), got {text!r}")
+    return value
+
+
+def _seed(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if not 0 <= value < 2**63:
+        raise argparse.ArgumentTypeError(f"must be a whole number from 0 to 2**63 - 1, got {text!r}")
+    return value
 
 
 class _Batch(argparse.Action):
@@ -163,7 +180,7 @@ def add_train_flags(p: argparse.ArgumentParser, data_optional: bool = False) -> 
                                                      f"{given})")
     p.add_argument("--shuffle", action=argparse.BooleanOptionalAction, default=None,
                    help=f"shuffle the training rows every epoch, seeded (default on{given})")
-    p.add_argument("--seed", type=int, help=f"seed of initialisation, shuffling and holdout (default 0{given})")
+    p.add_argument("--seed", type=_seed, help=f"seed of initialisation, shuffling and holdout (default 0{given})")
     p.add_argument("--momentum", type=_finite, help=f"momentum in [0, 1) (default 0{given})")
     p.add_argument("--l2", type=_finite, help=f"L2 penalty on weights, not biases (default 0{given})")
     p.add_argument("--scale", choices=("standard", "minmax", "none"), default="standard",
@@ -290,3 +307,8 @@ def negative_values_attached(argv: list[str]) -> list[str]:
         else:
             out.append(token)
     return out
+
+
+def build_defaults() -> dict[str, object]:
+    """Every flag of ``build`` as left out (to tell a flag given from its default)."""
+    return vars(command_parser().parse_args(["build", "--model", "model.json", "-o", "book.xlsx"]))

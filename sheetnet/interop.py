@@ -6,9 +6,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from sheetnet.errors import UsageError
+from sheetnet.errors import ModelFileError, UsageError
 from sheetnet.net.activations import Activation
-from sheetnet.net.model import Layer, Model, Scaling
+from sheetnet.net.model import Layer, Model, Scaling, model_from_dict
 
 SUPPORTED = ("MLPClassifier or MLPRegressor (fitted), alone or as the last step of a Pipeline whose only "
              "other step is a StandardScaler or MinMaxScaler")
@@ -80,11 +80,16 @@ def from_sklearn(estimator, target: str | list[str] | None = None, inputs: list[
         outputs = targets  # a regressor's (or multilabel) outputs are its target columns
     if task == "binary":
         outputs = targets
-    return Model(inputs=inputs, outputs=outputs, task=task, layers=layers,
-                 loss="squared" if task == "regression" else "cross-entropy", scaling=_scaling(scaler, n_inputs),
-                 target=targets, classes=classes,
-                 training={"source": f"scikit-learn {kind}", "n_iter": int(getattr(mlp, "n_iter_", 0)),
-                           "final_loss": float(getattr(mlp, "loss_", 0.0) or 0.0)})
+    model = Model(inputs=inputs, outputs=outputs, task=task, layers=layers,
+                  loss="squared" if task == "regression" else "cross-entropy", scaling=_scaling(scaler, n_inputs),
+                  target=targets, classes=classes,
+                  training={"source": f"scikit-learn {kind}", "n_iter": int(getattr(mlp, "n_iter_", 0)),
+                            "final_loss": float(getattr(mlp, "loss_", 0.0) or 0.0)})
+    try:  # what the model file's reader would refuse (empty or repeated names, a target among the inputs)
+        model_from_dict(model.to_dict())
+    except ModelFileError as exc:
+        raise UsageError(f"from_sklearn: {exc}") from None
+    return model
 
 
 def _task(mlp, n_out: int) -> tuple[str, tuple[str, ...], tuple[str, ...]]:

@@ -157,9 +157,57 @@ def test_every_option_shows_its_default_in_help():
     (["train", "{csv}", "--target", "y", "--holdout", "1", "-o", "{out}.json"], "fraction in [0, 1)"),
     (["train", "{csv}", "--target", "y", "--epochs", "0", "-o", "{out}.json"], "must be >= 1"),
     (["train", "{csv}", "--target", "y", "--batch-size", "-2", "-o", "{out}.json"], "must be >= 1"),
+    (["train", "{csv}", "--target", "y", "--seed", "-1", "-o", "{out}.json"], "from 0 to 2**63 - 1"),
+    (["build", "{csv}", "--target", "y", "--trace-epochs", "-1", "-o", "{out}.xlsx"], "must be >= 0 (0: none)"),
 ])
 def test_out_of_range_values_are_clear_usage_errors(args, says, tmp_path, run_cli, xor_csv):
     out = tmp_path / "out"
     code, _, err = run_cli(*[a.format(csv=xor_csv, out=out) for a in args])
     assert code == 2 and says in err and "expected one argument" not in err
     assert not list(tmp_path.glob("out*"))
+
+
+
+def test_build_model_checks_the_target_flag_and_says_which_flags_it_ignores(wine, tmp_path, run_cli):
+    data = wine / "wine.csv"
+    assert run_cli("train", data, "--target", "target", "--epochs", "5", "--quiet", "-o", tmp_path / "m.json")[0] == 0
+    code, _, err = run_cli("build", "--model", tmp_path / "m.json", data, "--target", "target,alcohol",
+                           "-o", tmp_path / "a.xlsx")
+    assert code == 2 and "names 2 column(s)" in err and "1 target(s)" in err
+    code, _, err = run_cli("build", "--model", tmp_path / "m.json", data, "--target", "nosuch",
+                           "-o", tmp_path / "b.xlsx")
+    assert code == 2 and "'nosuch': no such column" in err
+    code, out, err = run_cli("build", "--model", tmp_path / "m.json", data, "--hidden", "7", "--scale", "minmax",
+                             "--quiet", "-o", tmp_path / "c.xlsx")
+    assert code == 0 and "--hidden, --scale ignored: the model file fixes them" in out, err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["c.xlsx", "m.json"]
+
+
+@pytest.mark.parametrize("key, value, says", [("learning_rate", -1, "learning rate must be a positive number"),
+                                              ("epochs", 0, "epochs must be a whole number >= 1"),
+                                              ("batch_size", "half", "expected a whole number"),
+                                              ("momentum", 1.5, "momentum must be in [0, 1)")])
+def test_stored_settings_that_are_not_valid_are_refused_not_replaced(wine, tmp_path, run_cli, key, value, says):
+    data = wine / "wine.csv"
+    assert run_cli("train", data, "--target", "target", "--epochs", "5", "--quiet", "-o", tmp_path / "m.json")[0] == 0
+    model = json.loads((tmp_path / "m.json").read_text())
+    model["training"]["settings"][key] = value
+    (tmp_path / "m.json").write_text(json.dumps(model))
+    code, _, err = run_cli("build", "--model", tmp_path / "m.json", data, "-o", tmp_path / "b.xlsx")
+    assert code == 1 and "training.settings" in err and says in err and str(tmp_path / "m.json") in err
+
+
+def test_from_sklearn_refuses_names_a_model_file_could_not_hold(wine):
+    import warnings
+
+    from sklearn.neural_network import MLPClassifier
+
+    frame = pd.read_csv(wine / "wine.csv")
+    x, y = frame.drop(columns="target").to_numpy()[:, :3], frame["target"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        mlp = MLPClassifier((3,), max_iter=20, random_state=0).fit(x, y)
+    for kwargs, says in ((dict(target=""), "non-empty"), (dict(inputs=["a", "a", "b"]), "unique"),
+                         (dict(target="a", inputs=["a", "b", "c"]), "also an input")):
+        with pytest.raises(sheetnet.errors.UsageError, match=says):
+            sheetnet.from_sklearn(mlp, **kwargs)

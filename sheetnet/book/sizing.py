@@ -107,19 +107,37 @@ def _checked(costs: Costs, extent: Extent, requested: Requested) -> Extent:
     total = costs.cells(extent.epochs, extent.rows, scoring)
     if total <= costs.cap and (extent.epochs == 0 or extent.rows >= 1):
         return Extent(extent.epochs, extent.rows, None if scoring == costs.n_cases else scoring)
-    half = costs.room // 2
-    fit_scoring = max(1, half // costs.per_case)
-    fit_epochs = half // max(1, costs.epoch(costs.n_train))
-    fit_rows = half // max(1, costs.per_record_row + costs.per_step)
-    advice = [f"--scoring-rows {fit_scoring:,}"]
-    advice.append(f"--trace-epochs {fit_epochs:,}" if fit_epochs >= 1 else
-                  f"--trace-epochs 1 --trace-rows {fit_rows:,}")
-    advice.append("--trace-epochs 0 (no training record)")
+    rows = max(extent.rows, 1) if extent.epochs else 0
+    needed = costs.cells(extent.epochs, rows, scoring)
+    if requested.scoring_rows is None and scoring < costs.n_cases:  # a larger cap also widens the sample
+        needed = max(needed, costs.fixed + 2 * (costs.cells(extent.epochs, rows, 0) - costs.fixed))
+    advice = [*_advice(costs, Extent(extent.epochs, rows, scoring)), f"--max-cells {needed + needed // 10:,}"]
     raise WorkbookFormatError(
-        f"the workbook would hold about {total:,} formula cells ({scoring:,} cases x {costs.per_case} in Scoring, "
-        f"{extent.epochs:,} epochs x {extent.rows:,} rows x {costs.per_record_row} in the training record), more than "
-        f"the cap of {costs.cap:,}: try {', '.join(advice)}, or raise the cap with --max-cells "
-        f"{total + total // 10:,}")
+        f"the workbook would hold about {needed:,} formula cells ({scoring:,} cases x {costs.per_case} in Scoring, "
+        f"{extent.epochs:,} epochs x {rows:,} rows x {costs.per_record_row} in the training record), more than "
+        f"the cap of {costs.cap:,}: try {' or '.join(advice)}")
+
+
+def _advice(costs: Costs, wanted: Extent) -> list[str]:
+    """Flags that make ``wanted`` fit the cap, each keeping the rest as asked (only those that work)."""
+    advice = []
+    scoring_cells = wanted.scoring * costs.per_case
+    record_cells = costs.cells(wanted.epochs, wanted.rows, 0) - costs.fixed
+    spare = costs.room - record_cells
+    if spare >= costs.per_case and scoring_cells > spare:
+        advice.append(f"--scoring-rows {min(costs.n_cases, spare // costs.per_case):,}")
+    spare = costs.room - scoring_cells
+    if wanted.epochs and spare > 0:
+        epochs = spare // max(1, costs.epoch(wanted.rows))
+        per_row = costs.per_record_row + costs.per_step
+        rows = (spare - costs.per_epoch) // per_row
+        if 1 <= epochs < wanted.epochs:
+            advice.append(f"--trace-epochs {epochs:,}")
+        elif epochs < 1 and rows >= 1:
+            advice.append(f"--trace-epochs 1 --trace-rows {rows:,}")
+    if wanted.epochs and scoring_cells <= costs.room:
+        advice.append("--trace-epochs 0 (no training record)")
+    return advice
 
 
 def scoring_sample(n_cases: int, size: int | None, needed: np.ndarray) -> np.ndarray:

@@ -23,7 +23,8 @@ from sheetnet.net.model import TASKS, Scaling
 if TYPE_CHECKING:  # pandas is imported only where a DataFrame is used (start-up time)
     import pandas as pd
 
-MAX_ROWS = 1_000_000
+#: A worksheet's 1,048,576 rows less the header (Microsoft Support, "Excel specifications and limits").
+MAX_ROWS = 1_048_575
 MAX_COLUMNS = 1_000
 MAX_BYTES = 512 * 1024 * 1024
 #: An integer-valued numeric target with at most this many distinct values is read as classes.

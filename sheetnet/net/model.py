@@ -172,6 +172,9 @@ def model_from_dict(data: Any) -> Model:
     classes = tuple(str(c) for c in _list(data, "classes", default=[]))
     _check_classes(task, classes, outputs)
     target = _names(data, "target", default=list(outputs) if task in ("multilabel", "regression") else [])
+    both = sorted(set(target) & set(inputs))
+    if both:
+        raise ModelFileError(f"target: {both[0]!r} is also an input (a model would read its own answer)")
     training = data.get("training", {})
     if not isinstance(training, dict):
         raise ModelFileError("training: expected an object")

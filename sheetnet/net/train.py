@@ -25,7 +25,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from sheetnet.errors import TrainingError, UsageError
+from sheetnet.errors import ModelFileError, TrainingError, UsageError
 from sheetnet.net import activations as act
 from sheetnet.net.model import Layer, Model
 from sheetnet.net.network import delta_arrays, forward_arrays, gradient_arrays
@@ -64,22 +64,39 @@ class TrainSettings:
                 "shuffle": self.shuffle, "seed": self.seed, "momentum": self.momentum, "l2": self.l2}
 
 
-def stored_settings(model: Model) -> TrainSettings | None:
+def stored_settings(model: Model, source: str = "the model file") -> TrainSettings | None:
     """The settings a model was trained with, as ``train`` stores them in the model file (None for a
-    model trained elsewhere, or a file that does not hold them validly)."""
+    model trained elsewhere, which stores none); settings stored but not valid are refused with their
+    JSON path, never replaced by defaults in silence."""
     raw = model.training.get("settings") if isinstance(model.training, dict) else None
-    if not isinstance(raw, dict):
+    if raw is None:
         return None
     try:
+        if not isinstance(raw, dict):
+            raise TypeError("not an object")
         batch = raw.get("batch_size", 1)
-        settings = TrainSettings(learning_rate=float(raw["learning_rate"]), epochs=int(raw["epochs"]),
-                                 batch_size=None if batch == "full" else int(batch), shuffle=bool(raw["shuffle"]),
-                                 seed=int(raw["seed"]), momentum=float(raw.get("momentum", 0.0)),
-                                 l2=float(raw.get("l2", 0.0)))
+        settings = TrainSettings(learning_rate=float(raw["learning_rate"]), epochs=_whole(raw["epochs"]),
+                                 batch_size=None if batch == "full" else _whole(batch),
+                                 shuffle=_truth(raw["shuffle"]), seed=_whole(raw["seed"]),
+                                 momentum=float(raw.get("momentum", 0.0)), l2=float(raw.get("l2", 0.0)))
         settings.validate()
-    except (KeyError, TypeError, ValueError, UsageError):
-        return None
+    except KeyError as exc:
+        raise ModelFileError(f"{source}: training.settings.{exc.args[0]} is missing") from None
+    except (TypeError, ValueError, UsageError) as exc:
+        raise ModelFileError(f"{source}: training.settings: {exc}") from None
     return settings
+
+
+def _whole(value) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise ValueError(f"expected a whole number, got {value!r}")
+    return value
+
+
+def _truth(value) -> bool:
+    if not isinstance(value, bool):
+        raise ValueError(f"expected true or false, got {value!r}")
+    return value
 
 
 @dataclass(frozen=True)
