@@ -86,34 +86,27 @@ def _finite(text: str) -> float:
     return value
 
 
-def _count(text: str) -> int:
+def _whole(text: str, low: int, high: int | None, says: str) -> int:
+    """A whole number in [low, high] (no upper end when None), else one usage line saying ``says``."""
     try:
         value = int(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be >= 1, got {text!r}")
+    if value < low or (high is not None and value > high):
+        raise argparse.ArgumentTypeError(f"{says}, got {text!r}")
     return value
+
+
+def _count(text: str) -> int:
+    return _whole(text, 1, None, "must be >= 1")
 
 
 def _count_or_zero(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"must be >= 0 (0: none), got {text!r}")
-    return value
+    return _whole(text, 0, None, "must be >= 0 (0: none)")
 
 
 def _seed(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if not 0 <= value < 2**63:
-        raise argparse.ArgumentTypeError(f"must be a whole number from 0 to 2**63 - 1, got {text!r}")
-    return value
+    return _whole(text, 0, 2**63 - 1, "must be a whole number from 0 to 2**63 - 1")
 
 
 class _Batch(argparse.Action):
