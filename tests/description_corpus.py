@@ -110,4 +110,7 @@ CASES = {
     "stored data rows missing": _in_place(lambda d: d["inputs"].__setitem__("data", d["inputs"]["data"][:3])),
     "huge string": _set("spec.provenance", [["note", "".join(random.Random(1).choices("abcdefgh", k=3_000_000))]]),
     "not JSON": lambda d: "{" + json.dumps(d)[1:-1],
+    "fingerprints a list": _set("fingerprints", [["formulas"], ["inputs"]]),
+    "input name with control characters": _set("spec.inputs.0", "nul\x00bell\x07"),
+    "input name with an unpaired surrogate": _set("spec.inputs.0", "\ud800x"),
 }

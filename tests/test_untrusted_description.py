@@ -26,7 +26,8 @@ from tests.tamper import alter_description, read_description
 
 #: Cases whose altered part verify does not need: it verifies, and says the description has problems.
 NOT_NEEDED_TO_VERIFY = {"negative block position", "block past the sheet's end", "original learning rate NaN",
-                        "original weight infinite", "names disagree with the layout", "stored data rows missing"}
+                        "original weight infinite", "names disagree with the layout", "stored data rows missing",
+                        "fingerprints a list"}
 MEMORY_LIMIT_MB = 500
 TIME_LIMIT_S = 30
 
@@ -75,13 +76,15 @@ def _one_error_line(result: dict) -> str:
 def test_altered_description_ends_cleanly_on_every_command(case, book, tmp_path):
     altered = alter_description(book, tmp_path / "altered.xlsx", CASES[case])
     model, page, report = tmp_path / "model.json", tmp_path / "report.html", tmp_path / "audit.json"
-    commands = [["verify", str(altered), "--quiet"], ["audit", str(altered), "--quiet", "--json", str(report)],
+    marked = tmp_path / "marked.xlsx"
+    commands = [["verify", str(altered), "--quiet"],
+                ["audit", str(altered), "--quiet", "--json", str(report), "--annotate", str(marked)],
                 ["extract", str(altered), "-o", str(model)], ["report", str(altered), "-o", str(page)]]
     (verified, audited, extracted, reported), peak = run_measured(commands)
     assert peak < MEMORY_LIMIT_MB, f"{case}: peak {peak:.0f} MB"
 
     findings = json.loads(report.read_text())
-    assert audited["code"] == 3 and findings["counts"]["description"] >= 1, audited
+    assert audited["code"] == 3 and findings["counts"]["description"] >= 1 and marked.exists(), audited
     assert "Layout description" in audited["out"]
     if case in NOT_NEEDED_TO_VERIFY:
         assert verified["code"] == 0 and "note: the layout description has" in verified["out"], verified

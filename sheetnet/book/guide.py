@@ -40,13 +40,24 @@ def _name_meaning(name: str) -> str:
     return fixed.get(name) or meanings.get(kind, "")
 
 
+def _scoring_line(spec) -> str:
+    """What the Scoring sheet holds, for the data it was built from (a target or none; classes or values)."""
+    if not spec.has_targets:
+        return ("The data, one formula row per case (scaled inputs, every unit, outputs, prediction) and the "
+                "number of cases; the data has no target column, so there is no loss or accuracy.")
+    if not spec.is_classification:
+        return ("The data, one formula row per case (scaled inputs, every unit, outputs, prediction, loss) and a "
+                "summary with the mean loss, RMSE and MAE.")
+    return ("The data, one formula row per case (scaled inputs, every unit, outputs, prediction, correct or not) "
+            "and a summary with accuracy and loss.")
+
+
 def _sheet_lines(layout: BookLayout) -> list[tuple[str, str, str]]:
     lines = [("label", L.PARAMETERS, "Scaling constants and each layer's weights and biases (editable inputs)."),
              ("label", L.CALCULATOR, "One case: type raw inputs; every weighted sum, activation and the prediction "
                                     "follow as formulas.")]
     if layout.spec.n_cases:
-        lines.append(("label", L.SCORING, "The data, one formula row per case (scaled inputs, every unit, outputs, "
-                                          "prediction, correct or not) and a summary with accuracy and loss."))
+        lines.append(("label", L.SCORING, _scoring_line(layout.spec)))
     if layout.record is not None:
         lines += [
             ("label", L.SETUP, "Learning rate, initial parameters (editable) and the parameters after the record's "

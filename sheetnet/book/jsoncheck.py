@@ -38,6 +38,11 @@ def nesting_depth(text: str) -> int:
     return int(np.cumsum(steps).max())
 
 
+#: What a worksheet cell cannot hold (XML 1.0 forbids C0 controls but tab, newline and return; UTF-8
+#: cannot encode an unpaired surrogate).
+_UNWRITABLE = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff]")
+
+
 class Checker:
     """Collects problems of one section; each method returns the checked value or None."""
 
@@ -115,6 +120,9 @@ class Checker:
             return None
         if len(value) > max_length:
             self.add(where, f"text of {len(value):,} characters; at most {max_length:,}")
+            return None
+        if _UNWRITABLE.search(value):
+            self.add(where, "holds a control character or an unpaired surrogate, which no workbook cell can hold")
             return None
         if choices is not None and value not in choices:
             self.add(where, f"{value[:40]!r} is not one of {', '.join(choices)}")

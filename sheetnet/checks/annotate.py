@@ -47,7 +47,8 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
     for row, finding in enumerate(report.findings, start=2):  # (max_row would rescan the sheet each time)
         target = _target(book, finding)
         where = f"{finding.sheet}!{finding.cell}" if target is not None else (finding.sheet or finding.cell)
-        sheet.append([finding.kind, where, finding.note, _text(finding.expected), _text(finding.found)])
+        sheet.append([_text(finding.kind), _text(where), _text(finding.note), _text(finding.expected),
+                      _text(finding.found)])
         for column in (4, 5):  # formula text shown as text, never as a live formula of this sheet
             sheet.cell(row=row, column=column).data_type = "s"
         if target is None:
@@ -58,7 +59,7 @@ def annotate(source: Path, report: AuditReport, out: Path, force: bool = False) 
         lines = notes.setdefault((finding.sheet, finding.cell), [])
         if not lines:
             target.fill = PatternFill("solid", fgColor=FILLS[finding.kind])
-        text = f"sheetnet audit ({finding.kind}): {finding.note}"
+        text = f"sheetnet audit ({finding.kind}): {_text(finding.note)}"
         if finding.expected is not None:
             text += f"\nexpected: {_text(finding.expected)}"
         if finding.found is not None:
@@ -150,4 +151,10 @@ def _target(book, finding):
 
 
 def _text(value) -> str:
-    return "" if value is None else str(value)
+    """A value as text a worksheet can hold: control characters and unpaired surrogates (which a
+    returned file's description may carry) shown as U+FFFD."""
+    text = "" if value is None else str(value)
+    return _UNWRITABLE.sub("\ufffd", text)
+
+
+_UNWRITABLE = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff]")

@@ -165,16 +165,21 @@ def _entries(report: AuditReport, book: Workbook, layout: BookLayout, original: 
     return None
 
 
+def _mapping(value) -> dict:
+    return value if isinstance(value, dict) else {}
+
+
 def _check_fingerprints(report: AuditReport, own: Description, entries: list) -> None:
     """The stored fingerprints are hashes of what build wrote from the stored spec and inputs: one that
     disagrees with them was altered (the sheets themselves are compared cell by cell)."""
     prints = Fingerprints()
     for sheet, group in itertools.groupby(entries, key=lambda item: item[0]):
         prints.add_all(sheet, [entry for _, entry in group])
-    stored = own.data.get("fingerprints", {})
+    stored = _mapping(own.data.get("fingerprints"))  # a damaged one is a description finding already
     for kind, digests in prints.to_dict().items():
-        for sheet in sorted(set(digests) | set(stored.get(kind, {}))):
-            if digests.get(sheet) != stored.get(kind, {}).get(sheet):
+        found = _mapping(stored.get(kind))
+        for sheet in sorted(set(digests) | set(found)):
+            if digests.get(sheet) != found.get(sheet):
                 report.add(Finding("", f"fingerprints.{kind}.{sheet}", "description", None, None,
                                    "does not match what the description's spec and inputs give"))
 

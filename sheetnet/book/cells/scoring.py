@@ -98,7 +98,7 @@ def summary_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         yield Entry(summary.mean_loss.row, 1, "formula", fx.average(col(("loss",))), float(np.mean(scored.loss)))
     sets = np.array(spec.sets)
     for name, cell in summary.accuracy.items():
-        yield Entry(cell.row, 0, "label", f"accuracy ({name} cases)")
+        yield Entry(cell.row, 0, "label", f"accuracy ({name} cases on this sheet)")
         if name == "all":
             yield Entry(cell.row, 1, "formula", fx.average(col(("correct",))), float(np.mean(scored.correct)),
                         style="ratio")
