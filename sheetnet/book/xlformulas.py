@@ -56,20 +56,25 @@ def _sigmoid_argument(act: Activation, z: str) -> str:
     return f"({number(act.steepness)}*({z}-{number(act.midpoint)}))"
 
 
+def _sigmoid_text(act: Activation, z: str) -> str:
+    u = _sigmoid_argument(act, z)
+    return f"=IF({u}>=0,1/(1+EXP(-{u})),EXP({u})/(1+EXP({u})))"
+
+
+#: a = f(z) per activation as formula text (softmax takes the row's maximum and sum cells too).
+ACTIVATION_TEXT = {
+    "sigmoid": lambda act, z, m, s: _sigmoid_text(act, z),
+    "tanh": lambda act, z, m, s: f"=TANH({z})",
+    "relu": lambda act, z, m, s: f"=MAX({z},0)",
+    "identity": lambda act, z, m, s: f"={z}",
+    "step": lambda act, z, m, s: f"=IF({z}>={number(act.midpoint)},1,0)",
+    "softmax": lambda act, z, m, s: f"=EXP({z}-{m})/{s}",
+}
+
+
 def activation(act: Activation, z: str, softmax_max: str = "", softmax_sum: str = "") -> str:
     """a = f(z); the sigmoid in its two-branch form that never overflows."""
-    if act.name == "sigmoid":
-        u = _sigmoid_argument(act, z)
-        return f"=IF({u}>=0,1/(1+EXP(-{u})),EXP({u})/(1+EXP({u})))"
-    if act.name == "tanh":
-        return f"=TANH({z})"
-    if act.name == "relu":
-        return f"=MAX({z},0)"
-    if act.name == "identity":
-        return f"={z}"
-    if act.name == "step":
-        return f"=IF({z}>={number(act.midpoint)},1,0)"
-    return f"=EXP({z}-{softmax_max})/{softmax_sum}"
+    return ACTIVATION_TEXT[act.name](act, z, softmax_max, softmax_sum)
 
 
 def softmax_max(z_range: str) -> str:
@@ -80,18 +85,26 @@ def softmax_sum(z_range: str, max_cell: str) -> str:
     return f"=SUMPRODUCT(EXP({z_range}-{max_cell}))"
 
 
+def _sigmoid_derivative(act: Activation, a: str) -> str:
+    core = f"{a}*(1-{a})"
+    return core if act.steepness == 1.0 else f"{number(act.steepness)}*{core}"
+
+
+#: f'(z) per trainable activation as an expression (no ``=``), written from the activation where it can be.
+DERIVATIVE_TEXT = {
+    "sigmoid": lambda act, z, a: _sigmoid_derivative(act, a),
+    "tanh": lambda act, z, a: f"(1-{a}^2)",
+    "relu": lambda act, z, a: f"IF({z}>0,1,0)",
+    "identity": lambda act, z, a: "1",
+}
+
+
 def derivative(act: Activation, z: str, a: str) -> str:
     """f'(z) as an expression (no ``=``), written from the activation where it can be."""
-    if act.name == "sigmoid":
-        core = f"{a}*(1-{a})"
-        return core if act.steepness == 1.0 else f"{number(act.steepness)}*{core}"
-    if act.name == "tanh":
-        return f"(1-{a}^2)"
-    if act.name == "relu":
-        return f"IF({z}>0,1,0)"
-    if act.name == "identity":
-        return "1"
-    raise ValueError(f"no derivative formula for {act.name!r}")
+    rule = DERIVATIVE_TEXT.get(act.name)
+    if rule is None:
+        raise ValueError(f"no derivative formula for {act.name!r}")
+    return rule(act, z, a)
 
 
 def output_delta(loss: str, act: Activation, z: str, y: str, t: str, y_range: str = "", t_range: str = "") -> str:

@@ -70,35 +70,38 @@ def stable_softmax(z: np.ndarray) -> np.ndarray:
     return e / e.sum(axis=-1, keepdims=True)
 
 
+#: f(z) per activation, for weighted sums ``z`` of shape (batch, units). A new activation is one entry
+#: here and one in DERIVATIVES (if it can be trained), with its formula text in book/xlformulas.py.
+FORWARD = {
+    "sigmoid": lambda act, z: stable_sigmoid(act.steepness * (z - act.midpoint)),
+    "tanh": lambda act, z: np.tanh(z),
+    "relu": lambda act, z: np.maximum(z, 0.0),
+    "identity": lambda act, z: z.astype(float, copy=True),
+    "step": lambda act, z: (z >= act.midpoint).astype(float),
+    "softmax": lambda act, z: stable_softmax(z),
+}
+
+#: Element-wise f'(z), written from the output ``a`` where it can be (so a sheet cell can point at the
+#: activation cell it already has). Softmax is not element-wise: see :func:`output_delta`.
+DERIVATIVES = {
+    "sigmoid": lambda act, z, a: act.steepness * a * (1.0 - a),
+    "tanh": lambda act, z, a: 1.0 - a**2,
+    "relu": lambda act, z, a: (z > 0).astype(float),
+    "identity": lambda act, z, a: np.ones_like(z, dtype=float),
+}
+
+
 def forward(act: Activation, z: np.ndarray) -> np.ndarray:
     """Activation of the weighted sums ``z`` (shape (batch, units))."""
-    if act.name == "sigmoid":
-        return stable_sigmoid(act.steepness * (z - act.midpoint))
-    if act.name == "tanh":
-        return np.tanh(z)
-    if act.name == "relu":
-        return np.maximum(z, 0.0)
-    if act.name == "identity":
-        return z.astype(float, copy=True)
-    if act.name == "step":
-        return (z >= act.midpoint).astype(float)
-    return stable_softmax(z)
+    return FORWARD[act.name](act, z)
 
 
 def derivative(act: Activation, z: np.ndarray, a: np.ndarray) -> np.ndarray:
-    """Element-wise f'(z), written from the output ``a`` where it can be (so a sheet cell can
-    point at the activation cell it already has). Softmax is not element-wise: see
-    :func:`output_delta`.
-    """
-    if act.name == "sigmoid":
-        return act.steepness * a * (1.0 - a)
-    if act.name == "tanh":
-        return 1.0 - a**2
-    if act.name == "relu":
-        return (z > 0).astype(float)
-    if act.name == "identity":
-        return np.ones_like(z, dtype=float)
-    raise ModelFileError(f"activation {act.name!r} has no usable derivative for training")
+    """Element-wise f'(z) (see DERIVATIVES)."""
+    rule = DERIVATIVES.get(act.name)
+    if rule is None:
+        raise ModelFileError(f"activation {act.name!r} has no usable derivative for training")
+    return rule(act, z, a)
 
 
 def sample_loss(loss: str, output: Activation, y: np.ndarray, t: np.ndarray) -> np.ndarray:
