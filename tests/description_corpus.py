@@ -113,4 +113,6 @@ CASES = {
     "fingerprints a list": _set("fingerprints", [["formulas"], ["inputs"]]),
     "input name with control characters": _set("spec.inputs.0", "nul\x00bell\x07"),
     "input name with an unpaired surrogate": _set("spec.inputs.0", "\ud800x"),
+    "version true": _set("version", True),
+    "a key twice in one object": lambda d: json.dumps(d).replace('"spec":', '"spec": {}, "spec":', 1),
 }

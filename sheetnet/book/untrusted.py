@@ -195,9 +195,12 @@ def _parse(text: str, cap: int) -> tuple[dict | None, list[Problem]]:
         check.add("", f"the description nests deeper than {MAX_DEPTH} levels")
         return None, check.problems
     try:
-        data = json.loads(text)
+        data = json.loads(text, object_pairs_hook=_without_repeated_keys)
     except json.JSONDecodeError as exc:
         check.add("", f"not valid JSON (character {exc.pos:,}: {exc.msg})")
+        return None, check.problems
+    except _RepeatedKey as exc:
+        check.add("", f"the key {str(exc)[:40]!r} appears twice in one object: readers disagree on which one counts")
         return None, check.problems
     except (ValueError, RecursionError) as exc:
         check.add("", f"not valid JSON ({exc})")
@@ -207,7 +210,7 @@ def _parse(text: str, cap: int) -> tuple[dict | None, list[Problem]]:
         return None, check.problems
     if raw["format"] != FORMAT:
         check.add("format", f"expected {FORMAT!r}, found {raw['format']!r:.40}")
-    if raw["version"] != VERSION:
+    if type(raw["version"]) is not int or raw["version"] != VERSION:
         check.add("version", f"version {raw['version']!r:.20} is not supported (this sheetnet reads {VERSION})")
     tool = check.text(raw["tool"], "tool", 200)
     if tool is not None and not re.fullmatch(r"sheetnet \d+\.\d+\.\d+", tool):
@@ -390,3 +393,15 @@ def _signature(value: Any) -> list[Problem]:
             check.hexdigest(raw["key_id"], "signature.key_id", 16)
             check.hexdigest(raw["mac"], "signature.mac", 64)
     return check.problems
+
+
+class _RepeatedKey(Exception):
+    """A JSON object names one key twice (first-wins and last-wins readers would see different data)."""
+
+
+def _without_repeated_keys(pairs: list[tuple[str, object]]) -> dict:
+    out = dict(pairs)
+    if len(out) != len(pairs):
+        seen: set[str] = set()
+        raise _RepeatedKey(next(key for key, _ in pairs if key in seen or seen.add(key)))
+    return out
