@@ -97,7 +97,7 @@ def engine_against_formulas(folder: Path, cells: int) -> None:
     book = folder / "mid.xlsx"
     count = build(book, cells)
     code = ("import os, time; os.environ['TQDM_DISABLE'] = '1'\n"
-            "from sheetnet.book.xlsxread import read_workbook\nfrom sheetnet.engines.embedded import recalculate\n"
+            "from sheetnet.xlsx.reader import read_workbook\nfrom sheetnet.engines.embedded import recalculate\n"
             "import formulas\n"
             f"t = time.perf_counter(); recalculate(read_workbook({str(book)!r})); ours = time.perf_counter() - t\n"
             f"t = time.perf_counter(); formulas.ExcelModel().loads({str(book)!r}).finish().calculate()\n"

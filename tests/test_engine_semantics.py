@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from sheetnet.book.xlsxcells import CellError, SheetCells, Workbook
 from sheetnet.engines.embedded import Engine
+from sheetnet.xlsx.cells import CellError, SheetCells, Workbook
 
 os.environ.setdefault("TQDM_DISABLE", "1")
 
@@ -72,7 +72,7 @@ def theirs(formula: str, cells: dict[tuple[int, int], object]):
 
 
 def _pos(text: str) -> tuple[int, int]:
-    from sheetnet.book.addresses import parse_a1
+    from sheetnet.xlsx.addresses import parse_a1
 
     return parse_a1(text)
 

@@ -9,12 +9,12 @@ from hypothesis import strategies as st
 
 from sheetnet.book.build import from_model, write_workbook
 from sheetnet.book.sizing import Requested
-from sheetnet.book.xlsxread import read_workbook
 from sheetnet.checks.verify import verify
 from sheetnet.net.activations import Activation
 from sheetnet.net.data import Table
 from sheetnet.net.model import Layer, Model, Scaling, load_model
 from sheetnet.net.train import TrainSettings
+from sheetnet.xlsx.reader import read_workbook
 
 finite = st.floats(min_value=-1e4, max_value=1e4, allow_nan=False, allow_infinity=False)
 hidden_acts = st.sampled_from([Activation("sigmoid"), Activation("tanh"), Activation("relu"), Activation("identity"),

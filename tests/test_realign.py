@@ -12,10 +12,10 @@ import numpy as np
 import openpyxl
 import pytest
 
-from sheetnet.book.addresses import a1, cell_name
 from sheetnet.book.read import read_layout
-from sheetnet.book.xlsxread import read_workbook
 from sheetnet.engines.libreoffice import recalculate as libreoffice_recalculate
+from sheetnet.xlsx.addresses import a1, cell_name
+from sheetnet.xlsx.reader import read_workbook
 from tests.conftest import write_csv
 from tests.lo_edit import edit_in_libreoffice
 
@@ -160,8 +160,8 @@ def test_a_relative_reference_carried_above_the_first_row_by_a_sort_is_ref():
     """In a sort, a relative reference travels with its row (LibreOffice's default); one carried above
     the sheet's first row is #REF! in the application, so the expected text is #REF! too, never a row 0
     or a negative row."""
-    from sheetnet.book.addresses import Cell
     from sheetnet.checks.alignment import Alignment, SheetMap
+    from sheetnet.xlsx.addresses import Cell
 
     sheet = SheetMap("S", np.arange(7)[::-1].copy(), np.arange(10), reordered=frozenset(range(7)))
     alignment = Alignment(sheets={"S": sheet})

@@ -107,3 +107,13 @@ def test_imports_inside_functions_are_only_lazy_heavy_libraries_with_a_reason():
                 if module.split(".")[0] not in heavy or "lazy:" not in nearby:
                     unexplained.append(f"{path.name}:{node.lineno} {module}")
     assert unexplained == []
+
+
+def test_the_container_and_the_engines_know_nothing_of_networks():
+    """xlsx (the container) and engines (recalculation) import neither the trainer (net), nor the
+    workbook's meaning (book), nor the checks."""
+    graph = import_graph()
+    for module, imported in graph.items():
+        if module.startswith(("sheetnet.xlsx", "sheetnet.engines")):
+            assert not [m for m in imported if m.startswith(("sheetnet.net", "sheetnet.book", "sheetnet.checks"))], \
+                module

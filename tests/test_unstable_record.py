@@ -17,9 +17,9 @@ import openpyxl
 import pytest
 
 from sheetnet.book.read import read_layout
-from sheetnet.book.xlsxread import read_workbook
 from sheetnet.checks.stability import NUDGE, check_one_at_a_time, unstable_cells
 from sheetnet.checks.verify import expected_formulas
+from sheetnet.xlsx.reader import read_workbook
 
 
 @pytest.fixture(scope="module")

@@ -226,7 +226,7 @@ def test_shaped_record_rows_equal_rows_built_one_by_one(config, tmp_path, run_cl
     from sheetnet.book.layout import build_layout
     from sheetnet.book.numbers import compute
     from sheetnet.book.read import read_inputs, read_layout
-    from sheetnet.book.xlsxread import read_workbook
+    from sheetnet.xlsx.reader import read_workbook
 
     book = read_workbook(build(tmp_path, run_cli, *CONFIGS[config]))
     layout, _ = read_layout(book)

@@ -8,7 +8,6 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet.book.addresses import MAX_COLS, MAX_ROWS
 from sheetnet.book.describe import describe, description_text
 from sheetnet.book.layout import BookLayout, build_layout
 from sheetnet.book.numbers import compute
@@ -25,6 +24,7 @@ from sheetnet.net.metrics import Metrics, evaluate
 from sheetnet.net.model import Layer, Model
 from sheetnet.net.train import TrainSettings, epoch_batches
 from sheetnet.version import __version__
+from sheetnet.xlsx.addresses import MAX_COLS, MAX_ROWS
 
 #: Default cap on formula cells; ``--max-cells`` raises it (spreadsheet applications slow down
 #: well before their hard limits).

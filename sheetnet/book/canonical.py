@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import re
 
-from sheetnet.book.addresses import quote_sheet
+from sheetnet.xlsx.addresses import quote_sheet
 
 _SPACE_OUTSIDE_STRINGS = re.compile(r'("(?:[^"]|"")*")|\s+')
 _NUMBER = re.compile(r'("(?:[^"]|"")*")|(?<![A-Za-z_$0-9.])([0-9]+\.?[0-9]*(?:[Ee][+-]?[0-9]+)?)(?![A-Za-z_(0-9])')

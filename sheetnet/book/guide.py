@@ -4,8 +4,8 @@ provenance and the caution about what a reproducing workbook does not prove."""
 from __future__ import annotations
 
 from sheetnet.book import layout as L
-from sheetnet.book.addresses import Block, defined_name_target
 from sheetnet.book.layout import BookLayout
+from sheetnet.xlsx.addresses import Block, defined_name_target
 
 
 def caution(subject: str) -> str:

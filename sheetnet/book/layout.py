@@ -8,8 +8,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from sheetnet.book.addresses import Block, Cell
 from sheetnet.book.spec import BookSpec
+from sheetnet.xlsx.addresses import Block, Cell
 
 GUIDE = "Guide"
 PARAMETERS = "Parameters"

@@ -15,13 +15,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from sheetnet.book.addresses import Block, Cell, cell_name
 from sheetnet.book.layout import BookLayout, ParamBlocks
 from sheetnet.book.spec import BookInputs, BookSpec
 from sheetnet.book.untrusted import NEEDED_TO_VERIFY, Description, read_description
-from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.errors import InvalidInputsError
 from sheetnet.net.model import Layer
+from sheetnet.xlsx.addresses import Block, Cell, cell_name
+from sheetnet.xlsx.cells import CellError, Workbook
 
 #: Where a cell of the layout is in the file now (None: nowhere); the identity when nothing moved.
 Locate = Callable[[Cell], Cell | None]

@@ -8,12 +8,12 @@ from typing import Any
 
 import numpy as np
 
-from sheetnet.book.addresses import MAX_COLS, MAX_ROWS
 from sheetnet.book.jsoncheck import Checker, Problem
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.errors import ModelFileError
 from sheetnet.net.activations import LOSSES, NAMES, Activation
 from sheetnet.net.model import SCALING_METHODS, TASKS, Layer
+from sheetnet.xlsx.addresses import MAX_COLS, MAX_ROWS
 
 #: Networks deeper than this are not "small"; refusing them keeps every layout list short.
 MAX_LAYERS = 64

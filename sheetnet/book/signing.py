@@ -21,7 +21,6 @@ import stat
 from dataclasses import dataclass
 from pathlib import Path
 
-from sheetnet.book.addresses import defined_name_target
 from sheetnet.book.canonical import constant_text, normalize_formula, same_value, target_text
 from sheetnet.book.describe import SIGNATURE_ALGORITHM as ALGORITHM
 from sheetnet.book.describe import description_text
@@ -29,8 +28,9 @@ from sheetnet.book.layout import LAYOUT, BookLayout, build_layout
 from sheetnet.book.read import input_cells
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.untrusted import layout_sheet_problems
-from sheetnet.book.xlsxcells import Workbook
 from sheetnet.errors import UsageError
+from sheetnet.xlsx.addresses import defined_name_target
+from sheetnet.xlsx.cells import Workbook
 
 KEY_BYTES = 32
 _CONTEXT = b"sheetnet workbook signature v1\n"

@@ -27,15 +27,15 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from sheetnet.book import layout as L
-from sheetnet.book.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
 from sheetnet.book.describe import FORMAT, LAYOUT_TITLE, SIGNATURE_ALGORITHM, VERSION
-from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
+from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, RepeatedKey, nesting_depth, without_repeated_keys
 from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.spec import BookInputs, BookSpec
-from sheetnet.book.xlsxcells import Workbook
-from sheetnet.book.xlsxread import read_workbook
 from sheetnet.errors import DescriptionError, WorkbookFormatError
+from sheetnet.xlsx.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
+from sheetnet.xlsx.cells import Workbook
+from sheetnet.xlsx.reader import read_workbook
 
 #: The description's text is refused beyond this many characters, and beyond CHARS_PER_CELL for each
 #: cell the other sheets hold, plus SMALL_DESCRIPTION (a description takes under 0.5 a cell when a
@@ -195,11 +195,11 @@ def _parse(text: str, cap: int) -> tuple[dict | None, list[Problem]]:
         check.add("", f"the description nests deeper than {MAX_DEPTH} levels")
         return None, check.problems
     try:
-        data = json.loads(text, object_pairs_hook=_without_repeated_keys)
+        data = json.loads(text, object_pairs_hook=without_repeated_keys)
     except json.JSONDecodeError as exc:
         check.add("", f"not valid JSON (character {exc.pos:,}: {exc.msg})")
         return None, check.problems
-    except _RepeatedKey as exc:
+    except RepeatedKey as exc:
         check.add("", f"the key {str(exc)[:40]!r} appears twice in one object: readers disagree on which one counts")
         return None, check.problems
     except (ValueError, RecursionError) as exc:
@@ -393,15 +393,3 @@ def _signature(value: Any) -> list[Problem]:
             check.hexdigest(raw["key_id"], "signature.key_id", 16)
             check.hexdigest(raw["mac"], "signature.mac", 64)
     return check.problems
-
-
-class _RepeatedKey(Exception):
-    """A JSON object names one key twice (first-wins and last-wins readers would see different data)."""
-
-
-def _without_repeated_keys(pairs: list[tuple[str, object]]) -> dict:
-    out = dict(pairs)
-    if len(out) != len(pairs):
-        seen: set[str] = set()
-        raise _RepeatedKey(next(key for key, _ in pairs if key in seen or seen.add(key)))
-    return out

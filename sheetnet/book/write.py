@@ -20,7 +20,6 @@ from xlsxwriter.worksheet import Worksheet
 
 from sheetnet.book import layout as L
 from sheetnet.book import plan
-from sheetnet.book.addresses import a1, defined_name_target, range_ref
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.describe import LAYOUT_TITLE, Fingerprints
 from sheetnet.book.guide import guide_lines
@@ -28,6 +27,7 @@ from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import Numbers
 from sheetnet.book.signing import CellDigests
 from sheetnet.errors import WorkbookFormatError
+from sheetnet.xlsx.addresses import a1, defined_name_target, range_ref
 
 FIXED_DATE = dt.datetime(2000, 1, 1, 0, 0, 0)
 LAYOUT_CHUNK = 30_000

@@ -30,11 +30,6 @@ import numpy as np
 
 from sheetnet.book import layout as L
 from sheetnet.book import plan
-from sheetnet.book.addresses import (
-    a1,
-    defined_name_target,
-    parse_range,
-)
 from sheetnet.book.canonical import target_text
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.guide import guide_lines
@@ -43,9 +38,14 @@ from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs_checked
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import layout_extents
-from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.alignment import Alignment, Change, SheetMap, describe_changes
 from sheetnet.errors import SheetNetError, WorkbookFormatError
+from sheetnet.xlsx.addresses import (
+    a1,
+    defined_name_target,
+    parse_range,
+)
+from sheetnet.xlsx.cells import Workbook
 
 #: Text roles of the plan that serve as anchors (outside the tables' bodies).
 ANCHOR_ROLES = ("title", "header", "label", "text")

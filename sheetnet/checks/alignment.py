@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from sheetnet.book.addresses import (
+from sheetnet.xlsx.addresses import (
     Block,
     Cell,
     a1,

@@ -9,13 +9,13 @@ import zipfile
 from pathlib import Path
 from xml.sax.saxutils import escape
 
-from sheetnet.book.addresses import parse_a1, quote_sheet
 from sheetnet.book.layout import LAYOUT
 from sheetnet.book.untrusted import read_returned_workbook
-from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.checks.findings import AuditReport
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.files import write_atomic
+from sheetnet.xlsx.addresses import parse_a1, quote_sheet
+from sheetnet.xlsx.cells import CellError, Workbook
 
 FILLS = {"description": "F4B6B6", "signature": "F4B6B6", "structural": "F4B6B6", "formula_edits": "F8CBAD",
          "value_mismatches": "FFE699", "input_edits": "BDD7EE",

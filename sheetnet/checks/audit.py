@@ -14,7 +14,6 @@ from pathlib import Path
 
 from sheetnet.book import layout as L
 from sheetnet.book import plan
-from sheetnet.book.addresses import parse_a1
 from sheetnet.book.describe import Fingerprints
 from sheetnet.book.jsoncheck import Problem, json_differences
 from sheetnet.book.layout import BookLayout
@@ -23,7 +22,6 @@ from sheetnet.book.read import read_inputs, read_inputs_checked, read_layout
 from sheetnet.book.signing import check_signature
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import Description, read_description, read_returned_workbook
-from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.align import align
 from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.audit_cells import check_formulas, check_guide, check_inputs, check_risks, check_structure
@@ -34,6 +32,8 @@ from sheetnet.engines.formulaspkg import check_size
 from sheetnet.errors import SheetNetError, WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
+from sheetnet.xlsx.addresses import parse_a1
+from sheetnet.xlsx.cells import Workbook
 
 __all__ = ["KINDS", "AuditReport", "Finding", "audit"]
 SELF_ASSERTED = ("the layout description stored in the file is self-asserted: whoever can edit the file can edit "

@@ -10,15 +10,15 @@ import re
 from collections import Counter
 
 from sheetnet.book import layout as L
-from sheetnet.book.addresses import Cell, a1, defined_name_target, parse_a1
 from sheetnet.book.canonical import same_formula, same_value, target_text
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.read import InvalidInput, input_cells
 from sheetnet.book.spec import BookInputs
-from sheetnet.book.xlsxcells import CellError, SheetCells, Workbook
 from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.findings import AuditReport, Finding, plain
+from sheetnet.xlsx.addresses import Cell, a1, defined_name_target, parse_a1
+from sheetnet.xlsx.cells import CellError, SheetCells, Workbook
 
 VOLATILE = ("NOW", "TODAY", "RAND", "RANDBETWEEN", "OFFSET", "INDIRECT", "INFO", "CELL", "RANDARRAY")
 _VOLATILE = re.compile(r'"(?:[^"]|"")*"|\b(' + "|".join(VOLATILE) + r")\s*\(", re.I)

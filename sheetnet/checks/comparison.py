@@ -10,12 +10,12 @@ from __future__ import annotations
 import itertools
 from dataclasses import dataclass, field
 
-from sheetnet.book.addresses import a1, quote_sheet
 from sheetnet.book.canonical import same_formula
 from sheetnet.book.layout import LAYOUT
-from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.checks.tolerance import agree
+from sheetnet.xlsx.addresses import a1, quote_sheet
+from sheetnet.xlsx.cells import CellError, Workbook
 
 
 def _cell(sheet: str, pos: tuple[int, int]) -> str:

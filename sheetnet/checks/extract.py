@@ -15,20 +15,20 @@ from pathlib import Path
 import numpy as np
 
 from sheetnet.book import plan
-from sheetnet.book.addresses import Block, Cell, cell_name
 from sheetnet.book.canonical import SAME_NUMBER, same_formula
 from sheetnet.book.layout import CALCULATOR, BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import read_returned_workbook
-from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.align import alignment_for, light_entries
 from sheetnet.checks.alignment import Alignment
 from sheetnet.engines.embedded import recalculate
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model
+from sheetnet.xlsx.addresses import Block, Cell, cell_name
+from sheetnet.xlsx.cells import Workbook
 
 
 def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]:

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet.book.xlsxcells import CellError
+from sheetnet.xlsx.cells import CellError
 
 KINDS = ("description", "signature", "structural", "formula_edits", "value_mismatches", "input_edits", "risks")
 #: At most this many findings of one kind are listed (all are counted).

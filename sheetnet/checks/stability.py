@@ -18,11 +18,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from sheetnet.book.addresses import a1
-from sheetnet.book.xlsxcells import Workbook
 from sheetnet.checks.findings import LIST_LIMIT, plain
 from sheetnet.checks.tolerance import agree
 from sheetnet.engines.embedded import Engine
+from sheetnet.xlsx.addresses import a1
+from sheetnet.xlsx.cells import Workbook
 
 #: Relative nudge of the starting parameters: about 45 units in the last place, ten times or more
 #: the rounding differences between engines that accumulate along a step (about 1e-16 relative per

@@ -11,14 +11,11 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from sheetnet.book import plan
-from sheetnet.book.addresses import Cell
 from sheetnet.book.layout import BookLayout
 from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
 from sheetnet.book.untrusted import read_description, read_returned_workbook
-from sheetnet.book.xlsxcells import Workbook
-from sheetnet.book.xlsxread import read_workbook
 from sheetnet.checks.align import alignment_for
 from sheetnet.checks.alignment import Alignment
 from sheetnet.checks.comparison import Comparison, Prepared, compare, prepare
@@ -31,6 +28,9 @@ from sheetnet.engines.libreoffice import recalculate as lo_recalculate
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
+from sheetnet.xlsx.addresses import Cell
+from sheetnet.xlsx.cells import Workbook
+from sheetnet.xlsx.reader import read_workbook
 
 ENGINES = ("embedded", "libreoffice", "formulas", "both", "all")
 #: What each --engine choice runs ("both" predates the third engine and keeps its meaning).

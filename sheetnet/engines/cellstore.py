@@ -8,9 +8,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from sheetnet.book.xlsxcells import CellError
 from sheetnet.engines import xlfuncs as xf
 from sheetnet.engines import xlvalues as xv
+from sheetnet.xlsx.cells import CellError
 
 WIDTH = 16_384  # cell key = row * WIDTH + col
 MISSING = object()

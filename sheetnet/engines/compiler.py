@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 from openpyxl.formula.tokenizer import Token, Tokenizer
 
-from sheetnet.book.addresses import column_index
 from sheetnet.engines import xlfuncs as xf
+from sheetnet.xlsx.addresses import column_index
 
 #: Digit runs of a formula: row numbers of its references, and constants.
 RUNS = re.compile(r"[0-9]+")

@@ -19,13 +19,13 @@ import re
 from dataclasses import dataclass
 from operator import itemgetter
 
-from sheetnet.book.addresses import column_index
-from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.engines import xlvalues as xv
 from sheetnet.engines.cellstore import RUNTIME, WIDTH, NotReady, Store, V
 from sheetnet.engines.compiler import REFERENCE, RUNS, FormulaCompiler, FormulaParser, Unsupported
 from sheetnet.engines.general_path import GeneralPath
 from sheetnet.errors import EvaluationError
+from sheetnet.xlsx.addresses import column_index
+from sheetnet.xlsx.cells import CellError, Workbook
 
 _PURE_REF = re.compile(r"^\s*((?:'(?:[^']|'')+'|[A-Za-z_][\w.]*)!)?(\$?)([A-Z]{1,3})(\$?)([0-9]+)\s*$")
 

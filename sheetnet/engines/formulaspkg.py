@@ -14,9 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
-from sheetnet.book.addresses import parse_a1
-from sheetnet.book.xlsxcells import CellError, Workbook
 from sheetnet.errors import EvaluationError, UsageError
+from sheetnet.xlsx.addresses import parse_a1
+from sheetnet.xlsx.cells import CellError, Workbook
 
 #: Formula cells beyond which the `formulas` engine is refused (about a minute and 1.2 GB there).
 MAX_CELLS = 25_000

@@ -8,12 +8,12 @@ import re
 
 import numpy as np
 
-from sheetnet.book.addresses import column_index
-from sheetnet.book.xlsxcells import CellError
 from sheetnet.engines import xlvalues as xv
 from sheetnet.engines.cellstore import A
 from sheetnet.engines.compiler import RANGE
 from sheetnet.errors import EvaluationError
+from sheetnet.xlsx.addresses import column_index
+from sheetnet.xlsx.cells import CellError
 
 
 class GeneralPath:

@@ -9,8 +9,8 @@ from __future__ import annotations
 import math
 import re
 
-from sheetnet.book.xlsxcells import CellError
 from sheetnet.engines.xlvalues import Arr, XlErr, _rank, compare, finite, num, raise_if_error
+from sheetnet.xlsx.cells import CellError
 
 
 def f_exp(x) -> float:

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
-from sheetnet.book.xlsxcells import CellError
+from sheetnet.xlsx.cells import CellError
 
 
 class XlErr(Exception):

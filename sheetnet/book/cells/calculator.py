@@ -7,7 +7,6 @@ from collections.abc import Iterator
 import numpy as np
 
 from sheetnet.book import xlformulas as fx
-from sheetnet.book.addresses import Cell, range_ref, ref
 from sheetnet.book.cells.entry import Entry, activation_text, label_value
 from sheetnet.book.cells.network import RowRefs, network_entries, param_refs
 from sheetnet.book.layout import (
@@ -16,6 +15,7 @@ from sheetnet.book.layout import (
 )
 from sheetnet.book.numbers import Numbers
 from sheetnet.book.spec import BookSpec
+from sheetnet.xlsx.addresses import Cell, range_ref, ref
 
 
 def scaled_entry(layout: BookLayout, i: int, raw: Cell, target: Cell, value: float) -> Entry:

@@ -5,7 +5,6 @@ from __future__ import annotations
 from collections.abc import Iterator
 
 from sheetnet.book import xlformulas as fx
-from sheetnet.book.addresses import range_ref
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.cells.notes import column_note
 from sheetnet.book.layout import (
@@ -13,6 +12,7 @@ from sheetnet.book.layout import (
     BookLayout,
 )
 from sheetnet.book.numbers import Numbers
+from sheetnet.xlsx.addresses import range_ref
 
 
 def epoch_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:

@@ -7,7 +7,6 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 
 from sheetnet.book import xlformulas as fx
-from sheetnet.book.addresses import range_ref, ref
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.layout import (
     ParamBlocks,
@@ -15,6 +14,7 @@ from sheetnet.book.layout import (
 )
 from sheetnet.book.numbers import Scored
 from sheetnet.book.spec import BookSpec
+from sheetnet.xlsx.addresses import range_ref, ref
 
 
 @dataclass(frozen=True)

@@ -6,7 +6,6 @@ from __future__ import annotations
 from collections.abc import Iterator
 
 from sheetnet.book import xlformulas as fx
-from sheetnet.book.addresses import Cell, ref
 from sheetnet.book.cells.entry import Entry, activation_text, label_value
 from sheetnet.book.layout import (
     SETUP,
@@ -15,6 +14,7 @@ from sheetnet.book.layout import (
 )
 from sheetnet.book.numbers import Numbers
 from sheetnet.book.spec import BookSpec
+from sheetnet.xlsx.addresses import Cell, ref
 
 
 def _matrix_entries(spec: BookSpec, blocks: ParamBlocks, layers, title: str, role: str,

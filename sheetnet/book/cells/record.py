@@ -8,7 +8,6 @@ from collections.abc import Iterator
 import numpy as np
 
 from sheetnet.book import xlformulas as fx
-from sheetnet.book.addresses import range_ref, ref
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.cells.network import RowRefs, network_entries, table_refs
 from sheetnet.book.cells.notes import column_note
@@ -21,6 +20,7 @@ from sheetnet.book.layout import (
 from sheetnet.book.numbers import Numbers, Scored, correct_cases
 from sheetnet.book.spec import BookSpec
 from sheetnet.net.network import Pass
+from sheetnet.xlsx.addresses import range_ref, ref
 
 #: Reuse the formula text of a record row for every later row of the same shape (see ``_RowShapes``).
 SHAPED_RECORD_ROWS = True

@@ -7,7 +7,6 @@ from collections.abc import Iterator
 import numpy as np
 
 from sheetnet.book import xlformulas as fx
-from sheetnet.book.addresses import range_ref, ref
 from sheetnet.book.cells.calculator import predicted_entries, scaled_entry
 from sheetnet.book.cells.entry import Entry, label_value
 from sheetnet.book.cells.network import RowRefs, network_entries, param_refs, table_refs
@@ -20,6 +19,7 @@ from sheetnet.book.layout import (
 )
 from sheetnet.book.numbers import Numbers, Scored
 from sheetnet.book.spec import BookSpec
+from sheetnet.xlsx.addresses import range_ref, ref
 
 
 def _criterion(label: str) -> str:

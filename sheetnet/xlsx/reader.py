@@ -12,9 +12,9 @@ from __future__ import annotations
 import zipfile
 from pathlib import Path
 
-from sheetnet.book.sheetxml import read_sheet_xml, sheet_structure
-from sheetnet.book.xlsxcells import SheetCells, Workbook
-from sheetnet.book.xlsxzip import (
+from sheetnet.errors import WorkbookFormatError
+from sheetnet.xlsx.cells import SheetCells, Workbook
+from sheetnet.xlsx.package import (
     NS_MAIN,
     NS_REL,
     capped_parts,
@@ -26,7 +26,7 @@ from sheetnet.book.xlsxzip import (
     part_xml,
     relationships,
 )
-from sheetnet.errors import WorkbookFormatError
+from sheetnet.xlsx.sheetxml import read_sheet_xml, sheet_structure
 
 
 def _shared_strings(zf: zipfile.ZipFile, targets: dict[str, str]) -> list[str]:

@@ -7,10 +7,10 @@ from __future__ import annotations
 import html
 import re
 
-from sheetnet.book.addresses import column_index, column_letters
-from sheetnet.book.xlsxcells import CellError, SheetCells
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.parallel import Background, can_fork
+from sheetnet.xlsx.addresses import column_index, column_letters
+from sheetnet.xlsx.cells import CellError, SheetCells
 
 _CELL = re.compile(r"<(?:\w+:)?c\b([^>]*?)(?:/>|>(.*?)</(?:\w+:)?c>)", re.S)
 _ATTR = re.compile(r'([\w:]+)="([^"]*)"')
