@@ -33,7 +33,8 @@ def _criterion(label: str) -> str:
 
 def scoring_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     spec, table = layout.spec, layout.scoring
-    yield Entry(0, 0, "title", "Batch scoring: one formula row per case; summary above")
+    yield Entry(0, 0, "title", "Batch scoring: one formula row per case; the summary above is over the cases "
+                               "on this sheet")
     yield from summary_entries(layout, numbers)
     for column in table.columns:
         yield Entry(table.header_row, table.col(column.key), "header", column.header,
@@ -98,7 +99,7 @@ def summary_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         yield Entry(summary.mean_loss.row, 1, "formula", fx.average(col(("loss",))), float(np.mean(scored.loss)))
     sets = np.array(spec.sets)
     for name, cell in summary.accuracy.items():
-        yield Entry(cell.row, 0, "label", f"accuracy ({name} cases on this sheet)")
+        yield Entry(cell.row, 0, "label", f"accuracy ({name} cases)")
         if name == "all":
             yield Entry(cell.row, 1, "formula", fx.average(col(("correct",))), float(np.mean(scored.correct)),
                         style="ratio")
