@@ -9,7 +9,8 @@ def column_note(spec: BookSpec, key: tuple, where: str) -> str:
     """In words, what the formulas below a header compute."""
     kind = key[0]
     notes = {
-        "case": "Case number: the row of the data this line uses (1 = first data row).",
+        "case": "Case number: the Scoring sheet's case this line uses (1 = its first); the data's row too, unless "
+                "the Guide says the Scoring sheet holds a sample.",
         "set": "Whether the case was used for training or held out to check the model.",
         "raw": "Raw input value as in the data file (editable).",
         "target": "Target as in the data file (editable).",
