@@ -211,3 +211,11 @@ def test_from_sklearn_refuses_names_a_model_file_could_not_hold(wine):
                          (dict(target="a", inputs=["a", "b", "c"]), "also an input")):
         with pytest.raises(sheetnet.errors.UsageError, match=says):
             sheetnet.from_sklearn(mlp, **kwargs)
+
+
+def test_hundreds_of_unknown_labels_make_one_readable_line(tmp_path, run_cli, xor_csv):
+    assert run_cli("train", xor_csv, "--target", "y", "--epochs", "2", "--quiet", "-o", tmp_path / "m.json")[0] == 0
+    data = write_csv(tmp_path / "u.csv", ["x1", "x2", "y"], [[0, 1, f"label{i}"] for i in range(300)])
+    code, _, err = run_cli("build", "--model", tmp_path / "m.json", data, "-o", tmp_path / "b.xlsx")
+    assert code == 1 and "300 label(s) the model does not know" in err and "and 290 more" in err
+    assert len(err) < 400 and len(err.strip().splitlines()) == 1

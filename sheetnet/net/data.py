@@ -49,8 +49,8 @@ class Table:
     def require(self, names: list[str] | tuple[str, ...], what: str) -> None:
         missing = [n for n in names if n not in self.header]
         if missing:
-            raise DataError(f"{self.source}: {what} column(s) not found: {', '.join(missing)} "
-                            f"(columns are: {', '.join(self.header)})")
+            raise DataError(f"{self.source}: {what} column(s) not found: {some(missing)} "
+                            f"(columns are: {some(self.header)})")
 
 
 @dataclass(frozen=True)
@@ -278,8 +278,15 @@ def _check_classes(table: Table, column: str, task: str, classes: tuple[str, ...
                         "a binary task needs exactly two (use --task multiclass)")
     unknown = found - set(classes)
     if unknown:
-        raise DataError(f"{table.source}: target column {column!r} has label(s) the model does not know: "
-                        f"{', '.join(sorted(unknown))}")
+        raise DataError(f"{table.source}: target column {column!r} has {len(unknown):,} label(s) the model does "
+                        f"not know: {some(sorted(unknown))}")
+
+
+def some(names, shown: int = 10) -> str:
+    """The first names of a list, and how many more there are (an error stays one readable line)."""
+    names = list(names)
+    more = f" and {len(names) - shown:,} more" if len(names) > shown else ""
+    return ", ".join(names[:shown]) + more
 
 
 def fit_scaling(method: str, x: np.ndarray) -> Scaling | None:
