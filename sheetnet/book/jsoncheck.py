@@ -40,7 +40,7 @@ def nesting_depth(text: str) -> int:
 
 #: What a worksheet cell cannot hold (XML 1.0 forbids C0 controls but tab, newline and return; UTF-8
 #: cannot encode an unpaired surrogate).
-_UNWRITABLE = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff]")
+UNWRITABLE = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff]")
 
 
 class Checker:
@@ -121,7 +121,7 @@ class Checker:
         if len(value) > max_length:
             self.add(where, f"text of {len(value):,} characters; at most {max_length:,}")
             return None
-        if _UNWRITABLE.search(value):
+        if UNWRITABLE.search(value):
             self.add(where, "holds a control character or an unpaired surrogate, which no workbook cell can hold")
             return None
         if choices is not None and value not in choices:

@@ -9,6 +9,7 @@ import zipfile
 from pathlib import Path
 from xml.sax.saxutils import escape
 
+from sheetnet.book.jsoncheck import UNWRITABLE
 from sheetnet.book.layout import LAYOUT
 from sheetnet.book.untrusted import read_returned_workbook
 from sheetnet.checks.findings import AuditReport
@@ -154,7 +155,5 @@ def _text(value) -> str:
     """A value as text a worksheet can hold: control characters and unpaired surrogates (which a
     returned file's description may carry) shown as U+FFFD."""
     text = "" if value is None else str(value)
-    return _UNWRITABLE.sub("\ufffd", text)
+    return UNWRITABLE.sub("\ufffd", text)
 
-
-_UNWRITABLE = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff]")
