@@ -105,6 +105,9 @@ CASES = {
     "outputs disagree": _outputs_disagree,
     "names disagree with the layout": _names_disagree,
     "record case out of range": _case_out_of_range,
+    "case rows out of order": _in_place(lambda d: d["spec"].__setitem__(
+        "case_rows", list(range(d["spec"]["n_cases"], 0, -1)))),
+    "case rows too few": _set("spec.case_rows", [1, 2]),
     "sets length wrong": _in_place(lambda d: d["spec"]["sets"].pop()),
     "epochs out of order": _in_place(lambda d: d["spec"]["record"]["epochs"].reverse()),
     "stored data rows missing": _in_place(lambda d: d["inputs"].__setitem__("data", d["inputs"]["data"][:3])),

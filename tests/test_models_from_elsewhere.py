@@ -128,6 +128,22 @@ def test_a_long_table_gets_a_stated_scoring_sample(tmp_path, run_cli):
         "sheetnet_layout"].iter_rows(min_row=2, max_col=1) if c.value))
     assert description["spec"]["n_cases"] == held
     assert run_cli("verify", tmp_path / "b.xlsx", "--quiet")[0] == 0
+    _sampled_cases_carry_their_data_rows(tmp_path / "b.xlsx", rows)
+
+
+def _sampled_cases_carry_their_data_rows(path, rows: list) -> None:
+    """Each sampled case's number is its row in the data file, so it can be found there (and the record
+    names its cases by the same numbers)."""
+    book = openpyxl.load_workbook(path)
+    scoring = [r for r in book["Scoring"].iter_rows(values_only=True) if isinstance(r[0], int)]
+    numbers = [r[0] for r in scoring]
+    assert numbers == sorted(numbers) and numbers[-1] > len(numbers)
+    for case in scoring[:: max(1, len(scoring) // 50)]:
+        assert list(case[2:6]) == rows[case[0] - 1]
+    header = next(r for r in book["Training record"].iter_rows(values_only=True) if r[0] == "step")
+    case_col = header.index("case")
+    recorded = {r[case_col] for r in book["Training record"].iter_rows(values_only=True) if isinstance(r[0], int)}
+    assert recorded and recorded <= set(numbers)
 
 
 def test_every_option_shows_its_default_in_help():

@@ -254,6 +254,8 @@ def plan_workbook(model: Model, table: dataio.Table, settings: TrainSettings | N
     notes = describe_extent(extent, size, len(cases), len(table.rows), requested)
     lines = provenance(model, table, run if record else None, extent, metrics, extra)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
+    if len(cases) < len(table.rows):
+        spec = replace(spec, case_rows=tuple(int(c) + 1 for c in cases))
     return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial, spec.record), tuple(notes))
 
 

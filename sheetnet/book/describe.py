@@ -47,7 +47,8 @@ def spec_to_dict(spec: BookSpec) -> dict[str, Any]:
     if spec.record is not None:
         record = {"steps": [list(s) for s in spec.record.steps], "epochs": list(spec.record.epochs),
                   "momentum": spec.record.momentum, "l2": spec.record.l2}
-    return {
+    sampled = {"case_rows": list(spec.case_rows)} if spec.case_rows else {}
+    return sampled | {
         "inputs": list(spec.inputs), "outputs": list(spec.outputs), "units": list(spec.units),
         "activations": [a.to_dict() for a in spec.activations], "loss": spec.loss, "task": spec.task,
         "classes": list(spec.classes), "target": list(spec.target), "target_kind": spec.target_kind,

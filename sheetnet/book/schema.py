@@ -32,7 +32,7 @@ _INPUT_KEYS = ("layers", "offset", "divisor", "data", "threshold", "calculator",
 def read_spec(data: Any) -> tuple[BookSpec | None, list[Problem]]:
     """The spec section, or None and why not."""
     check = Checker("spec")
-    raw = check.obj(data, "spec", _SPEC_KEYS)
+    raw = check.obj(data, "spec", _SPEC_KEYS, ("case_rows",))
     if raw is None:
         return None, check.problems
     inputs = check.texts(raw["inputs"], "spec.inputs", 1, MAX_COLS - 2, unique=True, max_length=MAX_NAME)
@@ -49,12 +49,14 @@ def read_spec(data: Any) -> tuple[BookSpec | None, list[Problem]]:
     scaling = check.text(raw["scaling_method"], "spec.scaling_method", choices=("none", *SCALING_METHODS))
     provenance = _provenance(check, raw["provenance"])
     record = None if raw["record"] is None else _record(check, raw["record"], n_cases)
-    parts = (inputs, units, outputs, activations, loss, task, classes, target, kind, n_cases, sets, scaling, provenance)
+    case_rows = _case_rows(check, raw.get("case_rows", []), n_cases)
+    parts = (inputs, units, outputs, activations, loss, task, classes, target, kind, n_cases, sets, scaling, provenance,
+             case_rows)
     if check.problems or any(p is None for p in parts):
         return None, check.problems
     spec = BookSpec(inputs=inputs, outputs=outputs, units=units, activations=activations, loss=loss, task=task,
                     classes=classes, target=target, target_kind=kind, n_cases=n_cases, sets=sets, record=record,
-                    scaling_method=scaling, provenance=provenance)
+                    scaling_method=scaling, provenance=provenance, case_rows=case_rows)
     _consistent(check, spec)
     _fits_the_sheets(check, spec)
     return (None if check.problems else spec), check.problems
@@ -98,6 +100,23 @@ def _sets(check: Checker, value: Any, n_cases: int | None) -> tuple[str, ...] | 
     bad = next((n for n, s in enumerate(items) if not isinstance(s, str) or s not in SETS), None)
     if bad is not None:
         check.add(f"spec.sets[{bad}]", f"expected one of 'training', 'holdout' or '', found {items[bad]!r:.40}")
+        return None
+    return tuple(items)
+
+
+def _case_rows(check: Checker, value: Any, n_cases: int | None) -> tuple[int, ...] | None:
+    """The data rows of a sampled Scoring sheet: absent, or one whole number per case, increasing."""
+    items = check.array(value, "spec.case_rows")
+    if items is None or n_cases is None:
+        return None
+    if items and len(items) != n_cases:
+        check.add("spec.case_rows", f"expected {n_cases:,} rows (one per case) or none, found {len(items):,}")
+        return None
+    bad = next((n for n, r in enumerate(items) if not isinstance(r, int) or isinstance(r, bool)
+                or not 1 <= r <= MAX_ROWS or (n and r <= items[n - 1])), None)
+    if bad is not None:
+        check.add(f"spec.case_rows[{bad}]", f"expected a whole number in 1..{MAX_ROWS:,} above the one before, "
+                                            f"found {items[bad]!r:.40}")
         return None
     return tuple(items)
 

@@ -167,6 +167,6 @@ def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int,
                      f"rows ({why}); record more with --trace-epochs / --trace-rows and --max-cells")
     if sample < all_cases:
         lines.append(f"the Scoring sheet holds {sample:,} of the {all_cases:,} cases (the record's cases and evenly "
-                     "spaced others); its summary is over those; metrics over every case are in the Guide; "
-                     "set --scoring-rows and --max-cells for more")
+                     "spaced others, numbered by their row in the data file); its summary is over those; metrics "
+                     "over every case are in the Guide; set --scoring-rows and --max-cells for more")
     return lines

@@ -50,6 +50,8 @@ class BookSpec:
     ``target_kind``: "labels" (class labels to encode), "probabilities" (binary targets used as
     they are), "values" (regression or multilabel columns used as they are), or "none" (no
     targets: scoring without loss). ``sets[n]`` is "training", "holdout" or "" per case.
+    ``case_rows[n]`` is the data file's row (1 = its first data row) of the n-th case when the Scoring
+    sheet holds a sample; empty when it holds every case in order.
     """
 
     inputs: tuple[str, ...]
@@ -66,6 +68,11 @@ class BookSpec:
     record: RecordSpec | None
     scaling_method: str = "none"
     provenance: tuple[tuple[str, str], ...] = ()
+    case_rows: tuple[int, ...] = ()
+
+    def case_number(self, n: int) -> int:
+        """The number a reader sees for the n-th case: its row in the data file."""
+        return self.case_rows[n] if self.case_rows else n + 1
 
     @property
     def n_layers(self) -> int:

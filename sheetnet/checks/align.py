@@ -160,12 +160,12 @@ def _tables(layout: BookLayout) -> list[tuple[Table, dict]]:
     """Each table and its row labels: label (tuple of label cells' values) -> table row index."""
     out = []
     if layout.spec.n_cases:
-        out.append((layout.scoring, {(float(n + 1),): n for n in range(layout.spec.n_cases)}))
+        out.append((layout.scoring, {(float(layout.spec.case_number(n)),): n for n in range(layout.spec.n_cases)}))
     if layout.record is not None:
         labels = {}
         for s, (first, _count) in enumerate(layout.step_rows):
             for p, case in enumerate(layout.spec.record.steps[s]):
-                labels[(float(s + 1), float(case + 1))] = first + p
+                labels[(float(s + 1), float(layout.spec.case_number(case)))] = first + p
         out.append((layout.record, labels))
         out.append((layout.epochs, {(float(e + 1),): e for e in range(layout.spec.record.n_epochs)}))
     return out

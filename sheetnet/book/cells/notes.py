@@ -9,8 +9,9 @@ def column_note(spec: BookSpec, key: tuple, where: str) -> str:
     """In words, what the formulas below a header compute."""
     kind = key[0]
     notes = {
-        "case": "Case number: the Scoring sheet's case this line uses (1 = its first); the data's row too, unless "
-                "the Guide says the Scoring sheet holds a sample.",
+        "case": "Case number: the case's row in the data file (1 = its first data row)."
+        if where == "scoring" else "Case number: the case this line uses, numbered as on the Scoring sheet "
+                                   "(its row in the data file).",
         "set": "Whether the case was used for training or held out to check the model.",
         "raw": "Raw input value as in the data file (editable).",
         "target": "Target as in the data file (editable).",

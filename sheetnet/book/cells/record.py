@@ -114,7 +114,7 @@ def _record_links(layout: BookLayout, numbers: Numbers, s: int, first: int, p: i
     case = spec.record.steps[s][p]
     yield Entry(row, table.col(("step",)), "label", s + 1)
     yield Entry(row, table.col(("epoch",)), "label", spec.record.epochs[s])
-    yield Entry(row, table.col(("case",)), "label", case + 1)
+    yield Entry(row, table.col(("case",)), "label", spec.case_number(case))
     for n in range(len(spec.inputs)):
         yield Entry(row, table.col(("x", n)), "formula", fx.reference(ref(scoring.cell(case, ("x", n)), RECORD)),
                     step.inputs[p, n])

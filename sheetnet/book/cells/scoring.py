@@ -50,7 +50,7 @@ def _scoring_row(layout: BookLayout, numbers: Numbers, n: int, refs: RowRefs) ->
     cell = lambda key: table.cell(n, key)  # noqa: E731
     row = table.first_row + n
     data = numbers.inputs.data[n]
-    yield Entry(row, table.col(("case",)), "label", n + 1)
+    yield Entry(row, table.col(("case",)), "label", spec.case_number(n))
     yield Entry(row, table.col(("set",)), "label", spec.sets[n])
     for i in range(len(spec.inputs)):
         yield Entry(row, table.col(("raw", i)), "input", data[i], style="data")
