@@ -29,7 +29,7 @@ from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
 from sheetnet.net.fit import Architecture, FitOutcome, fit
 from sheetnet.net.model import Model, load_model
-from sheetnet.net.score import score_table
+from sheetnet.net.predict import score_table
 from sheetnet.net.train import TrainSettings, stored_settings
 from sheetnet.rates import compare_rates
 
@@ -37,7 +37,7 @@ if TYPE_CHECKING:
     import pandas as pd
 
 
-def as_table(data, source: str = "data") -> dataio.Table:
+def as_table(data, source: str = "data") -> dataio.DataTable:
     """A CSV path, a DataFrame or a 2-D numpy array as a data table."""
     if isinstance(data, str | Path):
         return dataio.read_csv(data)

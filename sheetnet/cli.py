@@ -46,7 +46,7 @@ from sheetnet.net import data as dataio
 from sheetnet.net.fit import FitOutcome, fit
 from sheetnet.net.metrics import evaluate
 from sheetnet.net.model import load_model
-from sheetnet.net.score import score_table
+from sheetnet.net.predict import score_table
 from sheetnet.net.train import TrainSettings, stored_settings
 from sheetnet.progress import Progress
 from sheetnet.rates import best, compare_rates, summary_rows
@@ -54,7 +54,7 @@ from sheetnet.report import audit_lines, verify_lines
 from sheetnet.training_summary import metrics_lines, summary_lines
 
 
-def run_fit(args: argparse.Namespace) -> tuple[FitOutcome, dataio.Table, TrainSettings]:
+def run_fit(args: argparse.Namespace) -> tuple[FitOutcome, dataio.DataTable, TrainSettings]:
     """Read the data (and starting model) named by the flags and train."""
     settings = settings_from(args)
     start = load_model(args.init) if args.init else None

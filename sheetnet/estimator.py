@@ -17,7 +17,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from sheetnet.book.build import DEFAULT_MAX_CELLS, plan_workbook, write_workbook
 from sheetnet.book.sizing import Requested
 from sheetnet.net.activations import Activation
-from sheetnet.net.data import Table, fit_scaling
+from sheetnet.net.data import DataTable, fit_scaling
 from sheetnet.net.model import Model
 from sheetnet.net.network import predict_outputs
 from sheetnet.net.train import TrainSettings, init_layers, train
@@ -93,10 +93,10 @@ class _SheetNet(BaseEstimator):
         return write_workbook(plan.spec, plan.inputs, Path(path), force=force).path
 
 
-def _table(model: Model, x: np.ndarray, labels: list[str]) -> Table:
+def _table(model: Model, x: np.ndarray, labels: list[str]) -> DataTable:
     header = (*model.inputs, *model.target)
     rows = tuple((*(repr(float(v)) for v in row), *label.split("\x1f")) for row, label in zip(x, labels, strict=True))
-    return Table(source="estimator data", header=header, rows=rows, lines=tuple(range(2, len(rows) + 2)))
+    return DataTable(source="estimator data", header=header, rows=rows, lines=tuple(range(2, len(rows) + 2)))
 
 
 class SheetNetClassifier(ClassifierMixin, _SheetNet):

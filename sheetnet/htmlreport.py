@@ -11,8 +11,8 @@ from pathlib import Path
 
 import numpy as np
 
+from sheetnet.book.expected import expected_numbers
 from sheetnet.book.guide import caution
-from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.untrusted import read_returned_workbook
 from sheetnet.checks.verify import verify
@@ -267,7 +267,7 @@ def book_sections(path: Path) -> list[Section]:
     inputs = read_inputs(book, layout)
     spec = layout.spec
     model = inputs.model(spec)
-    numbers = compute(spec, inputs)
+    numbers = expected_numbers(spec, inputs)
     x = np.array([row[: len(spec.inputs)] for row in inputs.data], dtype=float) if inputs.data else None
     labels = None
     if numbers.scoring.t is not None and spec.is_classification:

@@ -9,7 +9,7 @@ import numpy as np
 
 from sheetnet.errors import TrainingError
 from sheetnet.net import activations as act
-from sheetnet.net.data import Table, encode_targets, feature_matrix
+from sheetnet.net.data import DataTable, encode_targets, feature_matrix
 from sheetnet.net.fit import Architecture, fit
 from sheetnet.net.network import mean_loss, predict_outputs
 from sheetnet.net.train import TrainSettings
@@ -28,7 +28,7 @@ class RateRun:
     status: str  # "ok", "stalled", "unstable" or "diverged"
 
 
-def _holdout_loss(outcome, table: Table) -> float | None:
+def _holdout_loss(outcome, table: DataTable) -> float | None:
     rows = outcome.holdout_rows
     if not len(rows):
         return None
@@ -40,7 +40,7 @@ def _holdout_loss(outcome, table: Table) -> float | None:
     return float(np.mean(act.sample_loss(model.loss, model.output_activation, y, t)))
 
 
-def compare_rates(table: Table, target: tuple[str, ...], rates: list[float], settings: TrainSettings,
+def compare_rates(table: DataTable, target: tuple[str, ...], rates: list[float], settings: TrainSettings,
                   arch: Architecture, holdout: float | str = "auto", start=None) -> list[RateRun]:
     runs = []
     for rate in rates:

@@ -11,7 +11,7 @@ from sheetnet.book.build import from_model, write_workbook
 from sheetnet.book.sizing import Requested
 from sheetnet.checks.verify import verify
 from sheetnet.net.activations import Activation
-from sheetnet.net.data import Table
+from sheetnet.net.data import DataTable
 from sheetnet.net.model import Layer, Model, Scaling, load_model
 from sheetnet.net.train import TrainSettings
 from sheetnet.xlsx.reader import read_workbook
@@ -50,11 +50,11 @@ def test_model_file_round_trips(tmp_path_factory, model):
     assert again.to_dict() == model.to_dict()
 
 
-def _table(model: Model, rows: list[list[float]], labels: list) -> Table:
+def _table(model: Model, rows: list[list[float]], labels: list) -> DataTable:
     header = (*model.inputs, "y")
     body = tuple((*tuple(repr(v) for v in row[:len(model.inputs)]), str(label)) for row, label in
                  zip(rows, labels, strict=True))
-    return Table(source="generated.csv", header=header, rows=body, lines=tuple(range(2, len(body) + 2)))
+    return DataTable(source="generated.csv", header=header, rows=body, lines=tuple(range(2, len(body) + 2)))
 
 
 @given(networks(), st.data())

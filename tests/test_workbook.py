@@ -223,14 +223,14 @@ def test_model_without_data_gives_parameters_and_calculator(tmp_path, run_cli):
 @pytest.mark.parametrize("config", sorted(CONFIGS))
 def test_shaped_record_rows_equal_rows_built_one_by_one(config, tmp_path, run_cli, monkeypatch):
     from sheetnet.book.cells import record
+    from sheetnet.book.expected import expected_numbers
     from sheetnet.book.layout import build_layout
-    from sheetnet.book.numbers import compute
     from sheetnet.book.read import read_inputs, read_layout
     from sheetnet.xlsx.reader import read_workbook
 
     book = read_workbook(build(tmp_path, run_cli, *CONFIGS[config]))
     layout, _ = read_layout(book)
-    numbers = compute(layout.spec, read_inputs(book, layout))
+    numbers = expected_numbers(layout.spec, read_inputs(book, layout))
     layout = build_layout(layout.spec)
     shaped = list(record.record_entries(layout, numbers))
     monkeypatch.setattr(record, "SHAPED_RECORD_ROWS", False)

@@ -9,8 +9,8 @@ from pathlib import Path
 import numpy as np
 
 from sheetnet.book.describe import describe, description_text
+from sheetnet.book.expected import expected_numbers
 from sheetnet.book.layout import BookLayout, build_layout
-from sheetnet.book.numbers import compute
 from sheetnet.book.signing import CellDigests, sign
 from sheetnet.book.sizing import Costs, Extent, Requested, choose, describe_extent, scoring_sample
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
@@ -38,7 +38,7 @@ class BuildResult:
     layout: BookLayout
 
 
-def target_kind(model: Model, table: dataio.Table | None) -> str:
+def target_kind(model: Model, table: dataio.DataTable | None) -> str:
     """How the data's target columns become the numbers the loss uses."""
     if table is None or not model.target or not all(c in table.header for c in model.target):
         return "none"
@@ -54,7 +54,7 @@ def _cell(text: str) -> float | str:
     return text if value is None else value
 
 
-def _case_rows(model: Model, table: dataio.Table, kind: str) -> tuple[tuple[float | str, ...], ...]:
+def _case_rows(model: Model, table: dataio.DataTable, kind: str) -> tuple[tuple[float | str, ...], ...]:
     x = dataio.feature_matrix(table, model.inputs)
     targets = [table.column(c) for c in model.target] if kind != "none" else []
     return tuple(tuple(float(v) for v in x[n]) + tuple(_cell(col[n]) for col in targets)
@@ -74,7 +74,7 @@ def record_schedule(train_rows: np.ndarray, settings: TrainSettings, epochs: int
                       l2=settings.l2 > 0)
 
 
-def make_spec(model: Model, table: dataio.Table | None, sets: tuple[str, ...], record: RecordSpec | None,
+def make_spec(model: Model, table: dataio.DataTable | None, sets: tuple[str, ...], record: RecordSpec | None,
               provenance: list[tuple[str, str]]) -> BookSpec:
     kind = target_kind(model, table)
     classes = model.classes if model.task in ("binary", "multiclass") else ()
@@ -90,7 +90,7 @@ def make_spec(model: Model, table: dataio.Table | None, sets: tuple[str, ...], r
         scaling_method=model.scaling.method if model.scaling else "none", provenance=tuple(provenance))
 
 
-def make_inputs(model: Model, table: dataio.Table | None, kind: str, settings: TrainSettings | None,
+def make_inputs(model: Model, table: dataio.DataTable | None, kind: str, settings: TrainSettings | None,
                 initial: tuple[Layer, ...], record: RecordSpec | None, threshold: float = 0.5) -> BookInputs:
     """The editable values. Without a ``record`` there are no initial parameters, momentum or L2 (the
     description must say what the workbook holds)."""
@@ -106,7 +106,7 @@ def make_inputs(model: Model, table: dataio.Table | None, kind: str, settings: T
                       momentum=momentum, l2=l2, initial=initial if record is not None else ())
 
 
-def provenance(model: Model, table: dataio.Table | None, settings: TrainSettings | None, extent: Extent | None,
+def provenance(model: Model, table: dataio.DataTable | None, settings: TrainSettings | None, extent: Extent | None,
                metrics: list[tuple[str, Metrics]], extra: list[tuple[str, str]]) -> list[tuple[str, str]]:
     lines = [("tool", f"sheetnet {__version__}")]
     if table is not None:
@@ -169,7 +169,7 @@ def write_workbook(spec: BookSpec, inputs: BookInputs, path: Path, force: bool =
     estimate = check_size(layout, max_cells)
     if progress is not None:
         progress.total = max(estimate, 1)
-    numbers = compute(spec, inputs)
+    numbers = expected_numbers(spec, inputs)
     counted: list[int] = []
     digests = CellDigests() if sign_key is not None else None
 
@@ -207,7 +207,7 @@ def record_columns(layout: BookLayout) -> tuple[int, int]:
     return len(formulas) - per_step, per_step
 
 
-def costs(model: Model, table: dataio.Table, settings: TrainSettings, n_train: int, max_cells: int) -> Costs:
+def costs(model: Model, table: dataio.DataTable, settings: TrainSettings, n_train: int, max_cells: int) -> Costs:
     """Formula cells per Scoring case and per record row, from the columns the layout gives them."""
     batch = n_train if settings.batch_size is None else min(settings.batch_size, max(n_train, 1))
     probe = RecordSpec(steps=((0,) * max(batch, 1),), epochs=(1,), momentum=settings.momentum > 0, l2=settings.l2 > 0)
@@ -222,7 +222,7 @@ def costs(model: Model, table: dataio.Table, settings: TrainSettings, n_train: i
                  fixed=fixed)
 
 
-def _subset(table: dataio.Table, cases: np.ndarray) -> dataio.Table:
+def _subset(table: dataio.DataTable, cases: np.ndarray) -> dataio.DataTable:
     if len(cases) == len(table.rows):
         return table
     return replace(table, rows=tuple(table.rows[i] for i in cases), lines=tuple(table.lines[i] for i in cases))
@@ -236,7 +236,7 @@ def _renumbered(record: RecordSpec | None, cases: np.ndarray) -> RecordSpec | No
     return replace(record, steps=tuple(tuple(position[c] for c in step) for step in record.steps))
 
 
-def plan_workbook(model: Model, table: dataio.Table, settings: TrainSettings | None, train_rows: np.ndarray,
+def plan_workbook(model: Model, table: dataio.DataTable, settings: TrainSettings | None, train_rows: np.ndarray,
                   initial: tuple[Layer, ...], requested: Requested, max_cells: int,
                   metrics: list[tuple[str, Metrics]], sets: list[str], extra: list[tuple[str, str]]) -> Plan:
     """The spec and inputs of a workbook of ``model`` and ``table``, sized to fit ``max_cells``: a record
@@ -265,7 +265,7 @@ def without_record(plan: Plan, why: str) -> Plan:
     return Plan(replace(plan.spec, record=None), inputs, (*plan.notes, f"no training record: {why}"))
 
 
-def from_fit(outcome: FitOutcome, table: dataio.Table, settings: TrainSettings, requested: Requested,
+def from_fit(outcome: FitOutcome, table: dataio.DataTable, settings: TrainSettings, requested: Requested,
              max_cells: int = DEFAULT_MAX_CELLS, extra: list[tuple[str, str]] = ()) -> Plan:
     """The workbook of a training run: its model, data and replayed record."""
     sets = ["holdout"] * len(table.rows)
@@ -278,7 +278,7 @@ def from_fit(outcome: FitOutcome, table: dataio.Table, settings: TrainSettings, 
                          requested, max_cells, metrics, sets, list(extra))
 
 
-def from_model(model: Model, table: dataio.Table | None, settings: TrainSettings | None, requested: Requested,
+def from_model(model: Model, table: dataio.DataTable | None, settings: TrainSettings | None, requested: Requested,
                max_cells: int = DEFAULT_MAX_CELLS, extra: list[tuple[str, str]] = ()) -> Plan:
     """The workbook of a given model: parameters and calculator; with data, scoring; with targets in the
     data, a record that continues training from the model's weights with ``settings``."""

@@ -21,7 +21,7 @@ EPOCHS = "Epochs"
 LAYOUT = "sheetnet_layout"
 
 Key = tuple
-_FIRST_ROW = ("first row",)  # cached in Table.index: Table.cell is called for every cell of a large book
+_FIRST_ROW = ("first row",)  # cached in SheetTable.index: SheetTable.cell is called for every cell of a large book
 _new_cell = tuple.__new__
 
 
@@ -35,7 +35,7 @@ class Column:
 
 
 @dataclass(frozen=True)
-class Table:
+class SheetTable:
     """A header row and ``nrows`` data rows below it, columns from ``left`` on."""
 
     sheet: str
@@ -119,16 +119,16 @@ class BookLayout:
     parameters: ParamBlocks
     threshold: Cell | None
     calculator: CalculatorLayout
-    scoring: Table
+    scoring: SheetTable
     summary: SummaryLayout
     learning_rate: Cell | None
     momentum: Cell | None
     l2: Cell | None
     initial: ParamBlocks | None
     final: ParamBlocks | None
-    record: Table | None
+    record: SheetTable | None
     step_rows: tuple[tuple[int, int], ...]
-    epochs: Table | None
+    epochs: SheetTable | None
 
     def sheet_names(self) -> list[str]:
         """Every sheet of the workbook, in order: the one list the writer, verify and audit use."""
@@ -314,7 +314,7 @@ def build_layout(spec: BookSpec) -> BookLayout:
     calculator, threshold = _calculator(spec)
     has_holdout = "holdout" in spec.sets
     summary, table_top = _summary(spec, has_holdout)
-    scoring = Table(SCORING, table_top, spec.n_cases, tuple(_scoring_columns(spec)))
+    scoring = SheetTable(SCORING, table_top, spec.n_cases, tuple(_scoring_columns(spec)))
     record = initial = final = epochs = lr = momentum = l2 = None
     step_rows: tuple[tuple[int, int], ...] = ()
     if spec.record is not None:
@@ -323,12 +323,12 @@ def build_layout(spec: BookSpec) -> BookLayout:
         l2 = Cell(SETUP, 4, 1) if spec.record.l2 else None
         initial, row = param_blocks(spec, SETUP, 7)
         final, _ = param_blocks(spec, SETUP, row + 2)
-        record = Table(RECORD, 2, spec.record.n_rows, tuple(_record_columns(spec)))
+        record = SheetTable(RECORD, 2, spec.record.n_rows, tuple(_record_columns(spec)))
         step_rows = _step_rows(spec)
         epoch_cols = [Column(("epoch",), "epoch", "label"), Column(("loss",), "mean loss", "formula")]
         if spec.is_classification:
             epoch_cols.append(Column(("accuracy",), "accuracy", "formula"))
-        epochs = Table(EPOCHS, 2, spec.record.n_epochs, tuple(epoch_cols))
+        epochs = SheetTable(EPOCHS, 2, spec.record.n_epochs, tuple(epoch_cols))
     return BookLayout(spec=spec, offset=offset, divisor=divisor, class_labels=class_labels, parameters=parameters,
                       threshold=threshold, calculator=calculator, scoring=scoring, summary=summary,
                       learning_rate=lr, momentum=momentum, l2=l2, initial=initial, final=final, record=record,

@@ -15,6 +15,7 @@ from sheetnet.book.cells.epochs import epoch_entries
 from sheetnet.book.cells.parameters import parameter_entries, setup_entries
 from sheetnet.book.cells.record import record_entries
 from sheetnet.book.cells.scoring import scoring_entries
+from sheetnet.book.expected import Numbers
 from sheetnet.book.layout import (
     CALCULATOR,
     EPOCHS,
@@ -24,7 +25,6 @@ from sheetnet.book.layout import (
     SETUP,
     BookLayout,
 )
-from sheetnet.book.numbers import Numbers
 
 #: The cells of each sheet that has any (the Guide is prose; the layout sheet is the description).
 SHEET_ENTRIES = {PARAMETERS: parameter_entries, CALCULATOR: calculator_entries, SCORING: scoring_entries,

@@ -6,7 +6,7 @@
 * :class:`BookInputs` holds the values a user may edit: parameters, scaling constants, data,
   the decision threshold, the learning rate and the initial parameters.
 
-The reference numbers of every formula cell are a function of both (``sheetnet.book.numbers``).
+The reference numbers of every formula cell are a function of both (``sheetnet.book.expected``).
 """
 
 from __future__ import annotations

@@ -29,7 +29,7 @@ from typing import Any
 from sheetnet.book import layout as L
 from sheetnet.book.describe import FORMAT, LAYOUT_TITLE, SIGNATURE_ALGORITHM, VERSION
 from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, RepeatedKey, nesting_depth, without_repeated_keys
-from sheetnet.book.layout import LAYOUT, BookLayout, Table, build_layout
+from sheetnet.book.layout import LAYOUT, BookLayout, SheetTable, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.spec import BookInputs, BookSpec
 from sheetnet.errors import DescriptionError, WorkbookFormatError
@@ -257,7 +257,7 @@ def layout_extents(layout: BookLayout) -> dict[str, _Extent]:
         spans.setdefault(sheet, []).append((top, bottom))
 
     def visit(item: Any) -> None:
-        if isinstance(item, Table):
+        if isinstance(item, SheetTable):
             visit(item.block)
         elif isinstance(item, Block):
             put(item.sheet, item.top, item.bottom, item.right)

@@ -22,9 +22,9 @@ from sheetnet.book import layout as L
 from sheetnet.book import plan
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.describe import LAYOUT_TITLE, Fingerprints
+from sheetnet.book.expected import Numbers
 from sheetnet.book.guide import guide_lines
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.numbers import Numbers
 from sheetnet.book.signing import CellDigests
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.xlsx.addresses import a1, defined_name_target, range_ref
@@ -88,9 +88,9 @@ def _xml_text(text: str) -> str:
     return _CONTROL.sub(lambda m: f"_x{ord(m.group()):04X}_", text).translate(_XML_ESCAPES)
 
 
-def _cell_xml(entry: Entry, xf: int) -> str:
+def _cell_xml(entry: Entry, style_index: int) -> str:
     """One <c> element: a formula with its cached value, a number or an inline string."""
-    where = f'r="{a1(entry.row, entry.col)}" s="{xf}"'
+    where = f'r="{a1(entry.row, entry.col)}" s="{style_index}"'
     if entry.role == "formula":
         formula = _xml_text(entry.content[1:])
         value = entry.value
@@ -150,7 +150,7 @@ def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordere
         for entry in entries:
             _write(sheet, entry, formats)
         return
-    xf = {key: fmt._get_xf_index() for key, fmt in formats.items()}
+    style_index = {key: fmt._get_xf_index() for key, fmt in formats.items()}
     last_row = -1
     for row, group in itertools.groupby(entries, key=lambda e: e.row):
         if row <= last_row:
@@ -162,7 +162,7 @@ def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordere
             for entry in cells:
                 _write(sheet, entry, formats)
             continue
-        xml = "".join(_cell_xml(e, xf[(e.role, e.style) if e.style else e.role]) for e in cells)
+        xml = "".join(_cell_xml(e, style_index[(e.role, e.style) if e.style else e.role]) for e in cells)
         sheet.write_row_xml(row, cells[0].col, cells[-1].col, xml)
 
 

@@ -32,9 +32,9 @@ from sheetnet.book import layout as L
 from sheetnet.book import plan
 from sheetnet.book.canonical import target_text
 from sheetnet.book.cells.entry import Entry
+from sheetnet.book.expected import expected_numbers
 from sheetnet.book.guide import guide_lines
-from sheetnet.book.layout import BookLayout, Table, build_layout
-from sheetnet.book.numbers import compute
+from sheetnet.book.layout import BookLayout, SheetTable, build_layout
 from sheetnet.book.read import read_inputs_checked
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import layout_extents
@@ -71,7 +71,7 @@ def light_entries(layout: BookLayout, inputs: BookInputs) -> list[tuple[str, Ent
     if spec.record is not None:
         longest = max(spec.record.steps, key=len)  # the widest step decides the record's columns
         spec = replace(spec, record=replace(spec.record, steps=(longest,), epochs=(1,)))
-    return list(plan.all_entries(build_layout(spec), compute(spec, inputs)))
+    return list(plan.all_entries(build_layout(spec), expected_numbers(spec, inputs)))
 
 
 def looks_unmoved(book: Workbook, layout: BookLayout) -> bool:
@@ -156,7 +156,7 @@ def _extents(layout: BookLayout) -> dict[str, tuple[int, int]]:
     return {sheet: (e.last_row, e.last_col) for sheet, e in layout_extents(layout).items()}
 
 
-def _tables(layout: BookLayout) -> list[tuple[Table, dict]]:
+def _tables(layout: BookLayout) -> list[tuple[SheetTable, dict]]:
     """Each table and its row labels: label (tuple of label cells' values) -> table row index."""
     out = []
     if layout.spec.n_cases:
@@ -171,7 +171,7 @@ def _tables(layout: BookLayout) -> list[tuple[Table, dict]]:
     return out
 
 
-def _label_keys(table: Table) -> tuple[tuple, ...]:
+def _label_keys(table: SheetTable) -> tuple[tuple, ...]:
     return (("step",), ("case",)) if table.sheet == L.RECORD else ((table.columns[0].key),)
 
 
@@ -270,8 +270,8 @@ def _key(value: object) -> object:
     return float(value) if isinstance(value, int | float) else value
 
 
-def _table_votes(votes: _Votes, table: Table, labels: dict, cells: dict) -> None:
-    """Table rows found by their labels, in the label columns the header anchors located."""
+def _table_votes(votes: _Votes, table: SheetTable, labels: dict, cells: dict) -> None:
+    """A table's rows found by their labels, in the label columns the header anchors located."""
     label_cols = []
     for key in _label_keys(table):  # where the header anchors put the label column (else where it was)
         counter = votes.cols.get(table.col(key))

@@ -15,9 +15,9 @@ from pathlib import Path
 from sheetnet.book import layout as L
 from sheetnet.book import plan
 from sheetnet.book.describe import Fingerprints
+from sheetnet.book.expected import expected_numbers
 from sheetnet.book.jsoncheck import Problem, json_differences
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_inputs_checked, read_layout
 from sheetnet.book.signing import check_signature
 from sheetnet.book.spec import BookInputs
@@ -157,7 +157,7 @@ def _entries(report: AuditReport, book: Workbook, layout: BookLayout, original: 
     tried.append(("the inputs the file holds", read_inputs_checked(book, layout)[0]))
     for what, inputs in tried:
         try:
-            return list(plan.all_entries(layout, compute(layout.spec, inputs)))
+            return list(plan.all_entries(layout, expected_numbers(layout.spec, inputs)))
         except SheetNetError as exc:
             report.add(Finding("", "inputs", "description" if inputs is original else "input_edits", None, None,
                                f"the reference trainer cannot replay {what} ({exc})"))

@@ -16,8 +16,8 @@ import numpy as np
 
 from sheetnet.book import plan
 from sheetnet.book.canonical import SAME_NUMBER, same_formula
+from sheetnet.book.expected import expected_numbers
 from sheetnet.book.layout import CALCULATOR, BookLayout
-from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.spec import BookInputs
 from sheetnet.book.untrusted import read_returned_workbook
@@ -97,7 +97,7 @@ def _final_layers(book: Workbook, layout: BookLayout, inputs: BookInputs, built:
         raise WorkbookFormatError(f"{book.path}: the workbook has no training record to take parameters from")
     sorted_rows = alignment is not None and alignment.reordered  # the record then reads other cases
     if built is not None and not sorted_rows and _record_inputs_as_built(inputs, built):
-        numbers = compute(layout.spec, built)
+        numbers = expected_numbers(layout.spec, built)
         if _formulas_as_built(book, layout, numbers, alignment):
             note = "parameters after training: the reference trainer's (the record's inputs and formulas are as built)"
             return numbers.record.trace[-1].after, note

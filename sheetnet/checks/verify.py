@@ -11,8 +11,8 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from sheetnet.book import plan
+from sheetnet.book.expected import expected_numbers
 from sheetnet.book.layout import BookLayout
-from sheetnet.book.numbers import compute
 from sheetnet.book.read import read_inputs, read_layout
 from sheetnet.book.signing import SignatureCheck, check_signature
 from sheetnet.book.untrusted import read_description, read_returned_workbook
@@ -48,7 +48,7 @@ def expected_formulas(book: Workbook, layout: BookLayout, alignment: Alignment |
     if nudge:
         inputs = replace(inputs, initial=tuple(replace(layer, weights=layer.weights * (1 + nudge),
                                                        bias=layer.bias * (1 + nudge)) for layer in inputs.initial))
-    numbers = compute(layout.spec, inputs)
+    numbers = expected_numbers(layout.spec, inputs)
     as_float = float
     if not moved:
         return [(sheet, e.row, e.col, e.content, as_float(e.value) if isinstance(e.value, float) else e.value)

@@ -8,8 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from sheetnet.engines import xlfuncs as xf
-from sheetnet.engines import xlvalues as xv
+from sheetnet.engines import worksheet_functions, xlvalues
 from sheetnet.xlsx.cells import CellError
 
 WIDTH = 16_384  # cell key = row * WIDTH + col
@@ -44,11 +43,11 @@ def V(store: Store, row: int, col: int):
             raise NotReady(store, key)
         return None
     if type(value) is CellError:
-        raise xv.XlErr(value.code)
+        raise xlvalues.XlErr(value.code)
     return value
 
 
-def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xv.Arr:
+def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xlvalues.Arr:
     """A block of values (errors kept as elements)."""
     get = store.out.get
     if r0 == r1:
@@ -58,7 +57,7 @@ def A(store: Store, r0: int, c0: int, r1: int, c1: int) -> xv.Arr:
         values = [get(row * WIDTH + col, MISSING) for row in range(r0, r1 + 1) for col in range(c0, c1 + 1)]
     if MISSING in values:
         values = _fill(store, values, r0, c0, c1)
-    return xv.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
+    return xlvalues.Arr(r1 - r0 + 1, c1 - c0 + 1, values)
 
 
 def _fill(store: Store, values: list, r0: int, c0: int, c1: int) -> list:
@@ -74,12 +73,13 @@ def _fill(store: Store, values: list, r0: int, c0: int, c1: int) -> list:
 
 
 def raise_error(code: str):
-    raise xv.XlErr(code)
+    raise xlvalues.XlErr(code)
 
 
-RUNTIME = {name: getattr(module, name) for module in (xf, xv) for name in dir(module) if name.startswith(("op_", "f_"))}
-RUNTIME.update(ADD=xv.add, SUB=xv.sub, MUL=xv.mul, DIV2=xv.divide, POW2=xv.raise_to,
-               V=V, A=A, N=xv.num, T=xv.text, TRUTH=xv.truth, DIV=xv.div, POW=xv.power, CMP=xv.compare,
-               EW=xv.elementwise, M=xv.mapped, RAISE=raise_error, neg=lambda x: -xv.num(x))
+RUNTIME = {name: getattr(module, name) for module in (worksheet_functions, xlvalues) for name in dir(module)
+           if name.startswith(("op_", "f_"))}
+RUNTIME.update(ADD=xlvalues.add, SUB=xlvalues.sub, MUL=xlvalues.mul, DIV=xlvalues.div, POW=xlvalues.pow_,
+               V=V, A=A, N=xlvalues.num, T=xlvalues.text, TRUTH=xlvalues.truth, CMP=xlvalues.compare,
+               EW=xlvalues.elementwise, M=xlvalues.mapped, RAISE=raise_error, neg=lambda x: -xlvalues.num(x))
 
 

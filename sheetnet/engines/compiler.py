@@ -11,7 +11,7 @@ from dataclasses import dataclass
 
 from openpyxl.formula.tokenizer import Token, Tokenizer
 
-from sheetnet.engines import xlfuncs as xf
+from sheetnet.engines import worksheet_functions
 from sheetnet.xlsx.addresses import column_index
 
 #: Digit runs of a formula: row numbers of its references, and constants.
@@ -25,7 +25,7 @@ RANGE = re.compile(r"^(?:('(?:[^']|'')+'|[^'!:]+)!)?(\$?)([A-Za-z]{1,3})(\$?)([0
 PRECEDENCE = {"=": 1, "<>": 1, "<": 1, ">": 1, "<=": 1, ">=": 1, "&": 2, "+": 3, "-": 3, "*": 4, "/": 4, "^": 5}
 _ARRAY_OPS = {"+": "op_add", "-": "op_sub", "*": "op_mul", "/": "op_div", "^": "op_pow", "=": "op_eq",
               "<>": "op_ne", "<": "op_lt", "<=": "op_le", ">": "op_gt", ">=": "op_ge", "&": "op_cat"}
-_ARITHMETIC = {"+": "ADD", "-": "SUB", "*": "MUL", "/": "DIV2", "^": "POW2"}
+_ARITHMETIC = {"+": "ADD", "-": "SUB", "*": "MUL", "/": "DIV", "^": "POW"}
 _COMPARE = {"=": "== 0", "<>": "!= 0", "<": "< 0", "<=": "<= 0", ">": "> 0", ">=": ">= 0"}
 
 
@@ -125,9 +125,9 @@ class FormulaParser:
 
     @staticmethod
     def function(name: str, args: list[Node]) -> Node:
-        if name not in xf.FAST_FUNCTIONS:
+        if name not in worksheet_functions.FAST_FUNCTIONS:
             raise Unsupported(f"function {name} is not on the fast path")
-        if name in xf.ELEMENTWISE and len(args) == 1:
+        if name in worksheet_functions.ELEMENTWISE and len(args) == 1:
             return Node("call", (name, tuple(args)), args[0].array)
         if name == "IF" and (any(a.array for a in args) or not 2 <= len(args) <= 3):
             raise Unsupported("IF over arrays")
@@ -233,11 +233,11 @@ class FormulaCompiler:
         if name == "IF":
             otherwise = codes[2] if len(codes) == 3 else "False"
             return f"(({codes[1]}) if TRUTH({codes[0]}) else ({otherwise}))"
-        if name in xf.ARRAY_ARGUMENTS:  # a reference given to an aggregate is a range, even of one cell
+        if name in worksheet_functions.ARRAY_ARGUMENTS:  # a reference given to an aggregate is a range
             codes = [self.code(Node("range", (*a.args, a.args[1], a.args[2]), True)) if a.kind == "ref" else code
                      for a, code in zip(args, codes, strict=True)]
         function = f"f_{name.lower()}"
-        if name in xf.ELEMENTWISE and node.array:
+        if name in worksheet_functions.ELEMENTWISE and node.array:
             return f"M({function},{codes[0]})"
         return f"{function}({','.join(codes)})"
 

@@ -5,7 +5,7 @@ It knows nothing about networks. Speed comes from three things:
 * cells whose formulas are the same up to row offsets share one *template* (key: the formula
   with row numbers blanked, plus the row offsets), which is parsed and compiled to a Python
   function of the host row once;
-* a template made only of operators and the functions in ``xlfuncs.FAST_FUNCTIONS`` is compiled
+* a template made only of operators and the functions in ``worksheet_functions.FAST_FUNCTIONS`` is compiled
   to straight Python over floats (the fast path); anything else is evaluated per cell by the
   `formulas` package (the general path) and reported as such;
 * cells are computed in sheet and row order, and a cell that needs a formula not yet computed
@@ -19,7 +19,7 @@ import re
 from dataclasses import dataclass
 from operator import itemgetter
 
-from sheetnet.engines import xlvalues as xv
+from sheetnet.engines import xlvalues
 from sheetnet.engines.cellstore import RUNTIME, WIDTH, NotReady, Store, V
 from sheetnet.engines.compiler import REFERENCE, RUNS, FormulaCompiler, FormulaParser, Unsupported
 from sheetnet.engines.general_path import GeneralPath
@@ -219,28 +219,28 @@ def _evaluate(function, row: int, runs: tuple):
     try:
         value = function(row, runs)
         return value if type(value) is float and value - value == 0.0 else _result(value)
-    except xv.XlErr as err:
+    except xlvalues.XlErr as err:
         return CellError(err.code)
     except (OverflowError, ValueError, ZeroDivisionError):
         return CellError("#NUM!")
 
 
 def _single(value):
-    if type(value) is xv.Arr:
+    if type(value) is xlvalues.Arr:
         if value.rows * value.cols != 1:
-            raise xv.XlErr("#VALUE!")
-        return xv.raise_if_error(value.values[0])
+            raise xlvalues.XlErr("#VALUE!")
+        return xlvalues.raise_if_error(value.values[0])
     return value
 
 
 def _result(value):
     if type(value) is float:
         if value - value != 0.0:
-            raise xv.XlErr("#NUM!")
+            raise xlvalues.XlErr("#NUM!")
         return value
     if type(value) is int:
         return float(value)
-    if type(value) is xv.Arr:
+    if type(value) is xlvalues.Arr:
         return _single(value)
     return value
 
@@ -252,7 +252,7 @@ class _ErrorCell:
         self.code = code
 
     def __call__(self, _row: int, _runs: tuple = ()):
-        raise xv.XlErr(self.code)
+        raise xlvalues.XlErr(self.code)
 
 
 def recalculate(book: Workbook) -> Recalculation:

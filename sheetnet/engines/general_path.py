@@ -8,7 +8,7 @@ import re
 
 import numpy as np
 
-from sheetnet.engines import xlvalues as xv
+from sheetnet.engines import xlvalues
 from sheetnet.engines.cellstore import A
 from sheetnet.engines.compiler import RANGE
 from sheetnet.errors import EvaluationError
@@ -55,7 +55,7 @@ class GeneralPath:
         result = self.function(*args)
         value = result.ravel()[0] if hasattr(result, "ravel") else result
         if isinstance(value, XlError):
-            raise xv.XlErr(str(value))
+            raise xlvalues.XlErr(str(value))
         if isinstance(value, np.bool_ | bool):
             return bool(value)
         if isinstance(value, np.generic):

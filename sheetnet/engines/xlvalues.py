@@ -87,7 +87,8 @@ def finite(value: float) -> float:
     return value
 
 
-def div(a: float, b: float) -> float:
+def quotient(a: float, b: float) -> float:
+    """a/b of two numbers; /0 is #DIV/0!."""
     if b == 0:
         raise XlErr("#DIV/0!")
     return finite(a / b)
@@ -188,11 +189,11 @@ def mul(x, y) -> float:
     return v
 
 
-def divide(x, y) -> float:
-    return div(num(x), num(y))
+def div(x, y) -> float:
+    return quotient(num(x), num(y))
 
 
-def raise_to(x, y) -> float:
+def pow_(x, y) -> float:
     return power(num(x), num(y))
 
 
@@ -221,7 +222,7 @@ def op_mul(x, y):
 
 def op_div(x, y):
     errors_first(x, y)
-    return div(num(x), num(y))
+    return quotient(num(x), num(y))
 
 
 def op_pow(x, y):

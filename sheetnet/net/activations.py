@@ -1,6 +1,6 @@
 """Activation functions and losses: the numpy side of the network's vocabulary.
 
-Every function here has a spreadsheet twin (``sheetnet.book.xlformulas``) that uses the same
+Every function here has a spreadsheet twin (``sheetnet.book.formula_text``) that uses the same
 stable form and the same clip, so that the workbook and the trainer agree to rounding.
 """
 
@@ -71,7 +71,7 @@ def stable_softmax(z: np.ndarray) -> np.ndarray:
 
 
 #: f(z) per activation, for weighted sums ``z`` of shape (batch, units). A new activation is one entry
-#: here and one in DERIVATIVES (if it can be trained), with its formula text in book/xlformulas.py.
+#: here and one in DERIVATIVES (if it can be trained), with its formula text in book/formula_text.py.
 FORWARD = {
     "sigmoid": lambda act, z: stable_sigmoid(act.steepness * (z - act.midpoint)),
     "tanh": lambda act, z: np.tanh(z),

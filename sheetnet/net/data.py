@@ -33,7 +33,7 @@ DELIMITERS = ",;\t"
 
 
 @dataclass(frozen=True)
-class Table:
+class DataTable:
     """A data file as text: header, rows of cells, and each row's line number in the file."""
 
     source: str
@@ -63,8 +63,8 @@ class Targets:
     values: np.ndarray
 
 
-def read_csv(path: str | Path) -> Table:
-    """Read a CSV file into a :class:`Table` of strings."""
+def read_csv(path: str | Path) -> DataTable:
+    """Read a CSV file into a :class:`DataTable` of strings."""
     path = Path(path)
     text = _read_text(path)
     dialect = _sniff(text)
@@ -92,7 +92,7 @@ def read_csv(path: str | Path) -> Table:
         raise DataError(f"{path}: the file is empty")
     if not rows:
         raise DataError(f"{path}: the file has a header but no data rows")
-    return Table(source=str(path), header=header, rows=tuple(rows), lines=tuple(lines), notes=tuple(notes))
+    return DataTable(source=str(path), header=header, rows=tuple(rows), lines=tuple(lines), notes=tuple(notes))
 
 
 def _read_text(path: Path) -> str:
@@ -137,15 +137,15 @@ def _check_row(path: Path, cells: list[str], width: int, line: int) -> tuple[str
     return tuple(c.strip() for c in cells)
 
 
-def table_from_frame(frame: pd.DataFrame, source: str = "DataFrame") -> Table:
-    """Wrap a pandas DataFrame as a :class:`Table` (numbers kept exact via ``repr``)."""
+def table_from_frame(frame: pd.DataFrame, source: str = "DataFrame") -> DataTable:
+    """Wrap a pandas DataFrame as a :class:`DataTable` (numbers kept exact via ``repr``)."""
     header = tuple(str(c) for c in frame.columns)
     if len(set(header)) != len(header):
         raise DataError(f"{source}: duplicate column names")
     rows = tuple(tuple(_cell_text(v) for v in row) for row in frame.itertuples(index=False))
     if not rows:
         raise DataError(f"{source}: no data rows")
-    return Table(source=source, header=header, rows=rows, lines=tuple(range(2, len(rows) + 2)))
+    return DataTable(source=source, header=header, rows=rows, lines=tuple(range(2, len(rows) + 2)))
 
 
 def _cell_text(value: object) -> str:
@@ -163,7 +163,7 @@ def parse_number(text: str) -> float | None:
     return value if math.isfinite(value) else None
 
 
-def feature_matrix(table: Table, names: tuple[str, ...] | list[str]) -> np.ndarray:
+def feature_matrix(table: DataTable, names: tuple[str, ...] | list[str]) -> np.ndarray:
     """The named columns as a float matrix; a missing, non-numeric or non-finite cell is an error."""
     table.require(names, "input")
     x = np.empty((len(table.rows), len(names)))
@@ -191,7 +191,7 @@ def _sorted_labels(labels: set[str]) -> tuple[str, ...]:
     return tuple(sorted(labels))
 
 
-def infer_task(table: Table, target: tuple[str, ...], task: str | None, output: str | None) -> str:
+def infer_task(table: DataTable, target: tuple[str, ...], task: str | None, output: str | None) -> str:
     """Decide the task from the target column(s) unless ``--task`` or ``--output`` says.
 
     One 0/1 or two-label column: binary. More labels (text, or up to 10 integer values):
@@ -224,14 +224,14 @@ def infer_task(table: Table, target: tuple[str, ...], task: str | None, output: 
     return "multiclass" if len(labels) <= MAX_INTEGER_CLASSES else "regression"
 
 
-def _no_missing(table: Table, columns: tuple[str, ...]) -> None:
+def _no_missing(table: DataTable, columns: tuple[str, ...]) -> None:
     for name in columns:
         for i, text in enumerate(table.column(name)):
             if not text:
                 raise DataError(f"{table.source}: line {table.lines[i]}, column {name!r}: missing target value")
 
 
-def encode_targets(table: Table, target: tuple[str, ...], task: str,
+def encode_targets(table: DataTable, target: tuple[str, ...], task: str,
                    classes: tuple[str, ...] = ()) -> Targets:
     """Targets as a matrix for ``task``; ``classes`` (from a model) fixes the label order."""
     if task not in TASKS:
@@ -268,7 +268,7 @@ def binary_probabilities(texts: list[str]) -> np.ndarray | None:
     return np.array(values, dtype=float)
 
 
-def _check_classes(table: Table, column: str, task: str, classes: tuple[str, ...], labels: list[str]) -> None:
+def _check_classes(table: DataTable, column: str, task: str, classes: tuple[str, ...], labels: list[str]) -> None:
     found = set(labels)
     if len(found) < 2 and len(classes) < 2:
         raise DataError(f"{table.source}: target column {column!r} has only one class "

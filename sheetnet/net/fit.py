@@ -63,7 +63,7 @@ def loss_for(output: str) -> str:
     return "cross-entropy" if output in ("sigmoid", "softmax") else "squared"
 
 
-def fingerprint(table: dataio.Table) -> str:
+def fingerprint(table: dataio.DataTable) -> str:
     """SHA-256 of the table's text (header and cells), independent of delimiter and line endings."""
     digest = hashlib.sha256()
     for row in (table.header, *table.rows):
@@ -82,7 +82,7 @@ def holdout_fraction(holdout: float | str, n_rows: int) -> float:
     return fraction
 
 
-def skeleton(table: dataio.Table, target: tuple[str, ...], inputs: tuple[str, ...] | None,
+def skeleton(table: dataio.DataTable, target: tuple[str, ...], inputs: tuple[str, ...] | None,
              arch: Architecture, seed: int) -> tuple[Model, dataio.Targets]:
     """A freshly initialised model for the table, and its encoded targets."""
     task = dataio.infer_task(table, target, arch.task, arch.output)
@@ -109,7 +109,7 @@ def _check_pair(loss: str, output: Activation) -> None:
         raise UsageError(str(exc)) from None
 
 
-def from_start(table: dataio.Table, start: Model, target: tuple[str, ...], arch: Architecture
+def from_start(table: dataio.DataTable, start: Model, target: tuple[str, ...], arch: Architecture
                ) -> tuple[Model, dataio.Targets]:
     """The starting model with flag overrides (output activation, loss, task) applied."""
     layers = start.layers
@@ -137,7 +137,7 @@ def _strata(task: str, values: np.ndarray) -> np.ndarray | None:
     return None
 
 
-def fit(table: dataio.Table, target: tuple[str, ...], settings: TrainSettings, arch: Architecture | None = None,
+def fit(table: dataio.DataTable, target: tuple[str, ...], settings: TrainSettings, arch: Architecture | None = None,
         start: Model | None = None, holdout: float | str = "auto", inputs: tuple[str, ...] | None = None,
         trace_epochs: int = 0, progress: Callable[[int], None] | None = None) -> FitOutcome:
     """Train on ``table``; with ``start`` the architecture, activations and scaling come from it."""

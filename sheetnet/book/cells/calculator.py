@@ -6,14 +6,14 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from sheetnet.book import xlformulas as fx
+from sheetnet.book import formula_text
 from sheetnet.book.cells.entry import Entry, activation_text, label_value
 from sheetnet.book.cells.network import RowRefs, network_entries, param_refs
+from sheetnet.book.expected import Numbers
 from sheetnet.book.layout import (
     CALCULATOR,
     BookLayout,
 )
-from sheetnet.book.numbers import Numbers
 from sheetnet.book.spec import BookSpec
 from sheetnet.xlsx.addresses import Cell, range_ref, ref
 
@@ -21,7 +21,7 @@ from sheetnet.xlsx.addresses import Cell, range_ref, ref
 def scaled_entry(layout: BookLayout, i: int, raw: Cell, target: Cell, value: float) -> Entry:
     """scaled = (raw - offset) / divisor, with the constants of input ``i`` on the Parameters sheet."""
     here = target.sheet
-    formula = fx.scaled_input(ref(raw, here), ref(layout.offset.cell(0, i), here, True),
+    formula = formula_text.scaled_input(ref(raw, here), ref(layout.offset.cell(0, i), here, True),
                               ref(layout.divisor.cell(0, i), here, True))
     return Entry(target.row, target.col, "formula", formula, value)
 
@@ -81,13 +81,13 @@ def predicted_entries(spec: BookSpec, y: np.ndarray, y_refs: list[str], y_range:
         negative, positive = spec.classes
         label = positive if y[0] >= threshold_value else negative
         yield Entry(cells[0].row, cells[0].col, "formula",
-                    fx.predicted_binary(y_refs[0], threshold, negative, positive), label_value(label))
+                    formula_text.predicted_binary(y_refs[0], threshold, negative, positive), label_value(label))
     elif spec.task == "multiclass":
-        yield Entry(cells[0].row, cells[0].col, "formula", fx.predicted_multiclass(y_range, "class_labels"),
+        yield Entry(cells[0].row, cells[0].col, "formula", formula_text.predicted_multiclass(y_range, "class_labels"),
                     label_value(spec.classes[int(np.argmax(y))]))
     elif spec.task == "multilabel":
         for k, cell in enumerate(cells):
-            yield Entry(cell.row, cell.col, "formula", fx.predicted_flag(y_refs[k], threshold),
+            yield Entry(cell.row, cell.col, "formula", formula_text.predicted_flag(y_refs[k], threshold),
                         float(y[k] >= threshold_value))
 
 

@@ -4,14 +4,14 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 
-from sheetnet.book import xlformulas as fx
+from sheetnet.book import formula_text
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.cells.notes import column_note
+from sheetnet.book.expected import Numbers
 from sheetnet.book.layout import (
     EPOCHS,
     BookLayout,
 )
-from sheetnet.book.numbers import Numbers
 from sheetnet.xlsx.addresses import range_ref
 
 
@@ -27,11 +27,11 @@ def epoch_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         row = table.first_row + e
         yield Entry(row, table.col(("epoch",)), "label", e + 1)
         loss_range = range_ref(record.column_block(("loss",), first, count), EPOCHS)
-        yield Entry(row, table.col(("loss",)), "formula", fx.average(loss_range), result.epoch_loss[e])
+        yield Entry(row, table.col(("loss",)), "formula", formula_text.average(loss_range), result.epoch_loss[e])
         if spec.is_classification:
             acc_range = range_ref(record.column_block(("correct",), first, count), EPOCHS)
-            yield Entry(row, table.col(("accuracy",)), "formula", fx.average(acc_range), result.epoch_accuracy[e],
-                        style="ratio")
+            yield Entry(row, table.col(("accuracy",)), "formula", formula_text.average(acc_range),
+                        result.epoch_accuracy[e], style="ratio")
 
 
 def _epoch_rows(layout: BookLayout) -> list[tuple[int, int]]:

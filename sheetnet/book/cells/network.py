@@ -6,13 +6,13 @@ from __future__ import annotations
 from collections.abc import Iterator
 from dataclasses import dataclass
 
-from sheetnet.book import xlformulas as fx
+from sheetnet.book import formula_text
 from sheetnet.book.cells.entry import Entry
+from sheetnet.book.expected import Scored
 from sheetnet.book.layout import (
     ParamBlocks,
-    Table,
+    SheetTable,
 )
-from sheetnet.book.numbers import Scored
 from sheetnet.book.spec import BookSpec
 from sheetnet.xlsx.addresses import range_ref, ref
 
@@ -41,15 +41,17 @@ def network_entries(spec: BookSpec, refs: RowRefs, cell_of, scored: Scored, n: i
         for j in range(spec.units[k]):
             cell = cell_of(("z", k, j))
             yield Entry(cell.row, cell.col, "formula",
-                        fx.weighted_sum(refs.weights(k, j), refs.source(k), refs.bias(k, j)), scored.fwd.z[k][n, j])
+                        formula_text.weighted_sum(refs.weights(k, j), refs.source(k), refs.bias(k, j)),
+                        scored.fwd.z[k][n, j])
         if k == last and spec.softmax:
             cell = cell_of(("smax",))
-            yield Entry(cell.row, cell.col, "formula", fx.softmax_max(refs.z_range(k)), scored.smax[n])
+            yield Entry(cell.row, cell.col, "formula", formula_text.softmax_max(refs.z_range(k)), scored.smax[n])
             cell = cell_of(("ssum",))
-            yield Entry(cell.row, cell.col, "formula", fx.softmax_sum(refs.z_range(k), refs.smax), scored.ssum[n])
+            yield Entry(cell.row, cell.col, "formula", formula_text.softmax_sum(refs.z_range(k), refs.smax),
+                        scored.ssum[n])
         for j in range(spec.units[k]):
             cell = cell_of(("a", k, j))
-            yield Entry(cell.row, cell.col, "formula", fx.activation(act, refs.z(k, j), refs.smax, refs.ssum),
+            yield Entry(cell.row, cell.col, "formula", formula_text.activation(act, refs.z(k, j), refs.smax, refs.ssum),
                         scored.fwd.a[k][n, j])
 
 
@@ -60,7 +62,7 @@ def param_refs(blocks: ParamBlocks, here: str):
     return weights, bias
 
 
-def table_refs(table: Table, i: int, spec: BookSpec, weights, bias, x_key: tuple = ("x", 0)) -> RowRefs:
+def table_refs(table: SheetTable, i: int, spec: BookSpec, weights, bias, x_key: tuple = ("x", 0)) -> RowRefs:
     """References within row ``i`` of a table whose network columns follow ``network_columns``."""
     here = table.sheet
     units = spec.units

@@ -5,14 +5,14 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 
-from sheetnet.book import xlformulas as fx
+from sheetnet.book import formula_text
 from sheetnet.book.cells.entry import Entry, activation_text, label_value
+from sheetnet.book.expected import Numbers
 from sheetnet.book.layout import (
     SETUP,
     BookLayout,
     ParamBlocks,
 )
-from sheetnet.book.numbers import Numbers
 from sheetnet.book.spec import BookSpec
 from sheetnet.xlsx.addresses import Cell, ref
 
@@ -38,7 +38,7 @@ def _matrix_entries(spec: BookSpec, blocks: ParamBlocks, layers, title: str, rol
 def _param_cell(cell: Cell, value: float, role: str, formulas, key) -> Entry:
     if formulas is None:
         return Entry(cell.row, cell.col, role, float(value))
-    return Entry(cell.row, cell.col, "formula", fx.reference(formulas(key)), float(value))
+    return Entry(cell.row, cell.col, "formula", formula_text.reference(formulas(key)), float(value))
 
 
 def parameter_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:

@@ -7,17 +7,17 @@ from collections.abc import Iterator
 
 import numpy as np
 
-from sheetnet.book import xlformulas as fx
+from sheetnet.book import formula_text
 from sheetnet.book.cells.entry import Entry
 from sheetnet.book.cells.network import RowRefs, network_entries, table_refs
 from sheetnet.book.cells.notes import column_note
+from sheetnet.book.expected import Numbers, Scored, correct_cases
 from sheetnet.book.layout import (
     RECORD,
     BookLayout,
-    Table,
+    SheetTable,
     target_key,
 )
-from sheetnet.book.numbers import Numbers, Scored, correct_cases
 from sheetnet.book.spec import BookSpec
 from sheetnet.net.network import Pass
 from sheetnet.xlsx.addresses import range_ref, ref
@@ -116,11 +116,11 @@ def _record_links(layout: BookLayout, numbers: Numbers, s: int, first: int, p: i
     yield Entry(row, table.col(("epoch",)), "label", spec.record.epochs[s])
     yield Entry(row, table.col(("case",)), "label", spec.case_number(case))
     for n in range(len(spec.inputs)):
-        yield Entry(row, table.col(("x", n)), "formula", fx.reference(ref(scoring.cell(case, ("x", n)), RECORD)),
-                    step.inputs[p, n])
+        yield Entry(row, table.col(("x", n)), "formula",
+                    formula_text.reference(ref(scoring.cell(case, ("x", n)), RECORD)), step.inputs[p, n])
     for k in range(len(spec.outputs)):
         yield Entry(row, table.col(("t", k)), "formula",
-                    fx.reference(ref(scoring.cell(case, target_key(spec, k)), RECORD)), step.targets[p, k])
+                    formula_text.reference(ref(scoring.cell(case, target_key(spec, k)), RECORD)), step.targets[p, k])
 
 
 def _in_force(layout: BookLayout, s: int):
@@ -165,23 +165,23 @@ def _pass(step):
     return Pass(z=step.z, a=step.a)
 
 
-def _record_outcome(spec: BookSpec, table: Table, i: int, p: int, scored: Scored, refs: RowRefs) -> list[Entry]:
+def _record_outcome(spec: BookSpec, table: SheetTable, i: int, p: int, scored: Scored, refs: RowRefs) -> list[Entry]:
     last = spec.n_layers - 1
     y_refs = [refs.a(last, k) for k in range(spec.units[last])]
     t_refs = [ref(table.cell(i, ("t", k)), RECORD) for k in range(spec.units[last])]
     y_range = refs.a_range(last)
     t_range = range_ref(table.span(i, ("t", 0), spec.units[last]), RECORD)
     cell = table.cell(i, ("loss",))
-    out = [Entry(cell.row, cell.col, "formula", fx.loss(spec.loss, spec.activations[-1], y_refs, t_refs, y_range,
-                                                         t_range), scored.loss[p])]
+    out = [Entry(cell.row, cell.col, "formula",
+                 formula_text.loss(spec.loss, spec.activations[-1], y_refs, t_refs, y_range, t_range), scored.loss[p])]
     if spec.is_classification:
         cell = table.cell(i, ("correct",))
-        out.append(Entry(cell.row, cell.col, "formula", fx.correct(spec.task, y_refs, t_refs, y_range, t_range),
-                         scored.correct[p]))
+        out.append(Entry(cell.row, cell.col, "formula",
+                         formula_text.correct(spec.task, y_refs, t_refs, y_range, t_range), scored.correct[p]))
     return out
 
 
-def _delta_entries(spec: BookSpec, table: Table, i: int, p: int, step, refs: RowRefs, weight) -> list[Entry]:
+def _delta_entries(spec: BookSpec, table: SheetTable, i: int, p: int, step, refs: RowRefs, weight) -> list[Entry]:
     out = []
     last = spec.n_layers - 1
     out_act = spec.activations[last]
@@ -191,7 +191,8 @@ def _delta_entries(spec: BookSpec, table: Table, i: int, p: int, step, refs: Row
         cell = table.cell(i, ("d", last, k))
         t = ref(table.cell(i, ("t", k)), RECORD)
         out.append(Entry(cell.row, cell.col, "formula",
-                         fx.output_delta(spec.loss, out_act, refs.z(last, k), refs.a(last, k), t, y_range, t_range),
+                         formula_text.output_delta(spec.loss, out_act, refs.z(last, k), refs.a(last, k), t,
+                                                   y_range, t_range),
                          step.delta[last][p, k]))
     for layer in range(last - 1, -1, -1):
         for j in range(spec.units[layer]):
@@ -199,12 +200,13 @@ def _delta_entries(spec: BookSpec, table: Table, i: int, p: int, step, refs: Row
                      for m in range(spec.units[layer + 1])]
             cell = table.cell(i, ("d", layer, j))
             out.append(Entry(cell.row, cell.col, "formula",
-                             fx.hidden_delta(spec.activations[layer], refs.z(layer, j), refs.a(layer, j), terms),
+                             formula_text.hidden_delta(spec.activations[layer], refs.z(layer, j), refs.a(layer, j),
+                                                       terms),
                              step.delta[layer][p, j]))
     return out
 
 
-def _source_ref(spec: BookSpec, table: Table, i: int, k: int, n: int) -> str:
+def _source_ref(spec: BookSpec, table: SheetTable, i: int, k: int, n: int) -> str:
     key = ("x", n) if k == 0 else ("a", k - 1, n)
     return ref(table.cell(i, key), RECORD)
 
@@ -213,7 +215,7 @@ def _source_values(step, k: int) -> np.ndarray:
     return step.inputs if k == 0 else step.a[k - 1]
 
 
-def _contribution_entries(spec: BookSpec, table: Table, i: int, p: int, step, refs: RowRefs) -> list[Entry]:
+def _contribution_entries(spec: BookSpec, table: SheetTable, i: int, p: int, step, refs: RowRefs) -> list[Entry]:
     out = []
     for k in range(spec.n_layers):
         sources = _source_values(step, k)
@@ -222,7 +224,7 @@ def _contribution_entries(spec: BookSpec, table: Table, i: int, p: int, step, re
             for n in range(spec.fan_in(k)):
                 cell = table.cell(i, ("c", k, j, n))
                 out.append(Entry(cell.row, cell.col, "formula",
-                                 fx.contribution(delta, _source_ref(spec, table, i, k, n)),
+                                 formula_text.contribution(delta, _source_ref(spec, table, i, k, n)),
                                  step.delta[k][p, j] * sources[p, n]))
     return out
 
@@ -243,11 +245,11 @@ def _step_entries(layout: BookLayout, s: int, first: int, count: int, step, weig
                 else:
                     mean_of = f"{ref(table.cell(i, ('d', k, j)), RECORD)}*{_source_ref(spec, table, i, k, n)}"
                 out += _param_update(layout, s, i, ("g", k, j, n), ("v", k, j, n), ("w", k, j, n),
-                                     fx.gradient(mean_of, weight(k, j, n), l2), weight(k, j, n),
+                                     formula_text.gradient(mean_of, weight(k, j, n), l2), weight(k, j, n),
                                      step.grad_w[k][j, n], step.velocity[k][0][j, n], step.after[k].weights[j, n])
             d_col = table.column_block(("d", k, j), first, count)
             mean_b = f"AVERAGE({range_ref(d_col, RECORD)})" if batched else ref(table.cell(i, ("d", k, j)), RECORD)
-            out += _param_update(layout, s, i, ("gb", k, j), ("vb", k, j), ("wb", k, j), fx.gradient(mean_b),
+            out += _param_update(layout, s, i, ("gb", k, j), ("vb", k, j), ("wb", k, j), formula_text.gradient(mean_b),
                                  bias(k, j), step.grad_b[k][j], step.velocity[k][1][j], step.after[k].bias[j])
     return out
 
@@ -264,10 +266,11 @@ def _param_update(layout: BookLayout, s: int, i: int, gkey, vkey, wkey, grad_for
             prev_first, prev_count = layout.step_rows[s - 1]
             prev_v = ref(table.cell(prev_first + prev_count - 1, vkey), RECORD)
         cell = table.cell(i, vkey)
-        out.append(Entry(cell.row, cell.col, "formula", fx.velocity(prev_v, g_ref, "learning_rate", "momentum"), vel))
-        new_formula = fx.update_with_velocity(previous, ref(cell, RECORD))
+        out.append(Entry(cell.row, cell.col, "formula",
+                         formula_text.velocity(prev_v, g_ref, "learning_rate", "momentum"), vel))
+        new_formula = formula_text.update_with_velocity(previous, ref(cell, RECORD))
     else:
-        new_formula = fx.update(previous, g_ref, "learning_rate")
+        new_formula = formula_text.update(previous, g_ref, "learning_rate")
     cell = table.cell(i, wkey)
     out.append(Entry(cell.row, cell.col, "formula", new_formula, new))
     return out

@@ -34,7 +34,7 @@ def predicted_labels(model: Model, y: np.ndarray, threshold: float = 0.5) -> lis
     return [";".join(o for o, p in zip(model.outputs, row, strict=True) if p >= threshold) for row in y]
 
 
-def score_table(model: Model, table: dataio.Table, threshold: float = 0.5, keep_other_columns: bool = True
+def score_table(model: Model, table: dataio.DataTable, threshold: float = 0.5, keep_other_columns: bool = True
                 ) -> pd.DataFrame:
     """Every column of the table (as written in the file, in its order; only the model's inputs when
     ``keep_other_columns`` is off), then the scores and ``predicted``, so results join back on ids.

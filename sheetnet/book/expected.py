@@ -86,7 +86,7 @@ def correct_cases(task: str, y: np.ndarray, t: np.ndarray, threshold: float) -> 
     return np.all((y >= threshold) == (t >= 0.5), axis=1).astype(float)
 
 
-def score(spec: BookSpec, inputs: BookInputs, x_raw: np.ndarray, t: np.ndarray | None,
+def scored_cases(spec: BookSpec, inputs: BookInputs, x_raw: np.ndarray, t: np.ndarray | None,
           threshold: float) -> Scored:
     """Forward pass, softmax helpers, loss and correctness for raw inputs."""
     x = (x_raw - inputs.offset) / inputs.divisor
@@ -114,17 +114,17 @@ def replay(spec: BookSpec, inputs: BookInputs, x_scaled: np.ndarray, t: np.ndarr
     return train(model, x_scaled, t, settings, trace_epochs=record.n_epochs, schedule=epochs)
 
 
-def compute(spec: BookSpec, inputs: BookInputs) -> Numbers:
+def expected_numbers(spec: BookSpec, inputs: BookInputs) -> Numbers:
     """Every reference number the workbook's formulas should reproduce (an edited input may overflow
     them: the comparison reports the cells, numpy's warnings would only repeat it on stderr)."""
     with np.errstate(all="ignore"):
-        return _compute(spec, inputs)
+        return _expected_numbers(spec, inputs)
 
 
-def _compute(spec: BookSpec, inputs: BookInputs) -> Numbers:
+def _expected_numbers(spec: BookSpec, inputs: BookInputs) -> Numbers:
     t = encoded_targets(spec, inputs)
-    scoring = score(spec, inputs, raw_inputs(spec, inputs), t, inputs.threshold)
-    calculator = score(spec, inputs, inputs.calculator[None, :], None, inputs.threshold)
+    scoring = scored_cases(spec, inputs, raw_inputs(spec, inputs), t, inputs.threshold)
+    calculator = scored_cases(spec, inputs, inputs.calculator[None, :], None, inputs.threshold)
     record = None
     if spec.record is not None and t is not None:
         record = replay(spec, inputs, scoring.x, t)
