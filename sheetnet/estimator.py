@@ -14,8 +14,7 @@ from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils.multiclass import check_classification_targets, unique_labels
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from sheetnet.book.build import DEFAULT_MAX_CELLS, plan_workbook, write_workbook
-from sheetnet.book.sizing import Requested
+from sheetnet.api import Requested, plan_from_run, write_plan
 from sheetnet.net.activations import Activation
 from sheetnet.net.data import DataTable, fit_scaling
 from sheetnet.net.model import Model
@@ -88,9 +87,8 @@ class _SheetNet(BaseEstimator):
         labels = self._labels(self._t_fit) if y is None else [str(v) for v in np.asarray(y).ravel()]
         model = self.model_
         table = _table(model, x, labels)
-        plan = plan_workbook(model, table, self._settings(), np.arange(len(x)), self.initial_model_.layers,
-                             Requested(epochs=trace_epochs), DEFAULT_MAX_CELLS, [], ["training"] * len(x), [])
-        return write_workbook(plan.spec, plan.inputs, Path(path), force=force).path
+        plan = plan_from_run(model, self.initial_model_, table, self._settings(), Requested(epochs=trace_epochs))
+        return write_plan(plan, path, force=force)[0].path
 
 
 def _table(model: Model, x: np.ndarray, labels: list[str]) -> DataTable:

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import argparse
 import re
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -17,7 +16,6 @@ from sheetnet.errors import (
     UsageError,
 )
 from sheetnet.net.activations import Activation
-from sheetnet.net.fit import Architecture
 from sheetnet.net.train import TrainSettings
 from sheetnet.version import __version__
 
@@ -265,25 +263,23 @@ SETTING_FLAGS = {"lr": "learning_rate", "epochs": "epochs", "batch_size": "batch
                  "seed": "seed", "momentum": "momentum", "l2": "l2"}
 
 
-def settings_from(args: argparse.Namespace, base: TrainSettings | None = None) -> TrainSettings:
-    """The flags given, over ``base`` (the defaults, or a model's stored settings). A batch size of
-    'full' arrives as None like a flag left out, so it is told apart by the text given."""
-    base = base or TrainSettings()
-    values = {field: getattr(args, flag) for flag, field in SETTING_FLAGS.items()}
-    given = {field: value for field, value in values.items() if value is not None}
+def setting_options(args: argparse.Namespace) -> dict:
+    """The training settings the flags give, as the API's keyword arguments (flags left out are absent,
+    so a model's stored settings or the defaults fill them). A batch size of 'full' arrives as None
+    like a flag left out, so it is told apart by the text given."""
+    given = {field: getattr(args, flag) for flag, field in SETTING_FLAGS.items() if getattr(args, flag) is not None}
     if getattr(args, "batch_full", False):
-        given["batch_size"] = None
-    settings = replace(base, **given)
-    settings.validate()
-    return settings
+        given["batch_size"] = "full"
+    return given
 
 
-def architecture_from(args: argparse.Namespace) -> Architecture:
+def architecture_options(args: argparse.Namespace) -> dict:
+    """The architecture the flags give, as the API's keyword arguments ('auto' is left to inference)."""
     hidden_act = Activation(args.activation, args.steepness, args.midpoint) if args.activation == "sigmoid" \
         else Activation(args.activation)
     auto = lambda value: None if value == "auto" else value  # noqa: E731
-    return Architecture(hidden=args.hidden, activation=hidden_act, output=auto(args.output),
-                        loss=auto(args.loss), task=auto(args.task), scale=args.scale)
+    return {"hidden": args.hidden, "activation": hidden_act, "output": auto(args.output), "loss": auto(args.loss),
+            "task": auto(args.task), "scale": args.scale}
 
 
 _NEGATIVE = re.compile(r"^-[0-9.]")

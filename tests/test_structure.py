@@ -117,3 +117,16 @@ def test_the_container_and_the_engines_know_nothing_of_networks():
         if module.startswith(("sheetnet.xlsx", "sheetnet.engines")):
             assert not [m for m in imported if m.startswith(("sheetnet.net", "sheetnet.book", "sheetnet.checks"))], \
                 module
+
+
+def test_the_command_line_and_the_estimators_reach_the_stages_only_through_the_api():
+    """One way in: the faces call ``sheetnet.api``, which puts the stages (net, book, engines, checks,
+    xlsx) together; a stage imported by a face would be a second assembly to keep in step. The
+    estimators train through ``net`` because scikit-learn hands them arrays and encoded labels, not a
+    table; their workbooks go through the API."""
+    graph = import_graph()
+    stages = ("sheetnet.net", "sheetnet.book", "sheetnet.engines", "sheetnet.checks", "sheetnet.xlsx", "sheetnet.rates")
+    for face, allowed in (("sheetnet.cli", ()), ("sheetnet.estimator", ("sheetnet.net",))):
+        reached = sorted(m for m in graph[face] if m.startswith(stages) and not m.startswith(allowed))
+        assert reached == [], f"{face} imports stages directly: {reached}"
+    assert "sheetnet.api" in graph["sheetnet.cli"] and "sheetnet.api" in graph["sheetnet.estimator"]
