@@ -79,3 +79,13 @@ def test_no_builder_uses_a_function_outside_the_shared_vocabulary():
                   "MAX", "IF", "INDEX", "MATCH", "SQRT", "ABS"}
     used = {name for text, _ in CASES for name in re.findall(r"([A-Z][A-Z0-9.]*)\(", text)}
     assert used <= vocabulary, used - vocabulary
+
+
+def test_every_loss_has_its_numpy_function_its_formula_text_and_its_note():
+    """The loss registries are one vocabulary: a loss added on one side only would write a workbook
+    the trainer cannot reproduce (or fail with a KeyError on the first case)."""
+    from sheetnet.book.cells.notes import LOSS_NOTES
+    from sheetnet.net.activations import LOSSES, OUTPUT_DELTAS, SAMPLE_LOSSES
+
+    assert set(LOSSES) == set(SAMPLE_LOSSES) == set(OUTPUT_DELTAS) == set(formula_text.LOSS_TEXT) == \
+        set(formula_text.OUTPUT_DELTA_TEXT) == {loss for loss, _ in LOSS_NOTES}

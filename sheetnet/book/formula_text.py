@@ -107,22 +107,28 @@ def derivative(act: Activation, z: str, a: str) -> str:
     return rule(act, z, a)
 
 
-def output_delta(loss: str, act: Activation, z: str, y: str, t: str, y_range: str = "", t_range: str = "") -> str:
-    """dE/dz of one output unit; canonical pairs reduce to y - t (times the sigmoid steepness)."""
-    if loss == "cross-entropy":
-        if act.name == "sigmoid" and act.steepness != 1.0:
-            return f"={number(act.steepness)}*({y}-{t})"
-        if act.name in ("sigmoid", "softmax"):
-            return f"={y}-{t}"
-        slope = (f"(-{t}/MAX({y},{CLIP})*IF({y}>{CLIP},1,0)"
-                 f"+(1-{t})/MAX(1-{y},{CLIP})*IF(1-{y}>{CLIP},1,0))")
-        factor = derivative(act, z, y)
-        return f"={slope}" if factor == "1" else f"={factor}*{slope}"
+def _cross_entropy_delta(act: Activation, z: str, y: str, t: str, y_range: str, t_range: str) -> str:
+    if act.name == "sigmoid" and act.steepness != 1.0:
+        return f"={number(act.steepness)}*({y}-{t})"
+    if act.name in ("sigmoid", "softmax"):
+        return f"={y}-{t}"
+    slope = (f"(-{t}/MAX({y},{CLIP})*IF({y}>{CLIP},1,0)"
+             f"+(1-{t})/MAX(1-{y},{CLIP})*IF(1-{y}>{CLIP},1,0))")
+    factor = derivative(act, z, y)
+    return f"={slope}" if factor == "1" else f"={factor}*{slope}"
+
+
+def _squared_delta(act: Activation, z: str, y: str, t: str, y_range: str, t_range: str) -> str:
     if act.name == "softmax":
         return f"={y}*(({y}-{t})-SUMPRODUCT({y_range}-{t_range},{y_range}))"
     if act.name == "identity":
         return f"={y}-{t}"
     return f"={derivative(act, z, y)}*({y}-{t})"
+
+
+def output_delta(loss: str, act: Activation, z: str, y: str, t: str, y_range: str = "", t_range: str = "") -> str:
+    """dE/dz of one output unit; canonical pairs reduce to y - t (times the sigmoid steepness)."""
+    return OUTPUT_DELTA_TEXT[loss](act, z, y, t, y_range, t_range)
 
 
 def hidden_delta(act: Activation, z: str, a: str, terms: list[tuple[str, str]]) -> str:
@@ -132,15 +138,26 @@ def hidden_delta(act: Activation, z: str, a: str, terms: list[tuple[str, str]]) 
     return f"=({total})" if factor == "1" else f"={factor}*({total})"
 
 
-def loss(kind: str, act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
-    """Per-case loss: 1/2 sum (t-y)^2, or cross-entropy with the probability clip inside LN."""
-    if kind == "squared":
-        return f"=0.5*SUMXMY2({t_range},{y_range})"
+def _squared_loss(act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
+    return f"=0.5*SUMXMY2({t_range},{y_range})"
+
+
+def _cross_entropy_loss(act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
     if act.name == "softmax":
         terms = [f"{t}*LN(MAX({y},{CLIP}))" for y, t in zip(ys, ts, strict=True)]
     else:
         terms = [f"{t}*LN(MAX({y},{CLIP}))+(1-{t})*LN(MAX(1-{y},{CLIP}))" for y, t in zip(ys, ts, strict=True)]
     return "=-(" + "+".join(terms) + ")"
+
+
+#: The spreadsheet twins of ``net.activations.SAMPLE_LOSSES`` and ``OUTPUT_DELTAS``.
+LOSS_TEXT = {"squared": _squared_loss, "cross-entropy": _cross_entropy_loss}
+OUTPUT_DELTA_TEXT = {"squared": _squared_delta, "cross-entropy": _cross_entropy_delta}
+
+
+def loss(kind: str, act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
+    """Per-case loss: 1/2 sum (t-y)^2, or cross-entropy with the probability clip inside LN."""
+    return LOSS_TEXT[kind](act, ys, ts, y_range, t_range)
 
 
 def correct(task: str, ys: list[str], ts: list[str], y_range: str, t_range: str, threshold: str = "0.5") -> str:

@@ -15,7 +15,6 @@ from sheetnet.errors import ModelFileError
 ELEMENTWISE = ("sigmoid", "tanh", "relu", "identity", "step")
 NAMES = (*ELEMENTWISE, "softmax")
 TRAINABLE = ("sigmoid", "tanh", "relu", "identity", "softmax")
-LOSSES = ("squared", "cross-entropy")
 
 #: Probabilities are clipped to at least this inside the logarithm of the cross-entropy.
 #: 1e-12 (not machine epsilon) because LibreOffice snaps ``1-y`` to 0 once y is within
@@ -104,6 +103,43 @@ def derivative(act: Activation, z: np.ndarray, a: np.ndarray) -> np.ndarray:
     return rule(act, z, a)
 
 
+def _squared_loss(output: Activation, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    return 0.5 * np.sum((t - y) ** 2, axis=1)
+
+
+def _cross_entropy_loss(output: Activation, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    positive = t * np.log(np.maximum(y, PROBABILITY_CLIP))
+    if output.name == "softmax":
+        return -np.sum(positive, axis=1)
+    negative = (1.0 - t) * np.log(np.maximum(1.0 - y, PROBABILITY_CLIP))
+    return -np.sum(positive + negative, axis=1)
+
+
+def _squared_delta(output: Activation, z: np.ndarray, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    g = y - t
+    if output.name == "softmax":
+        return y * (g - np.sum(g * y, axis=1, keepdims=True))
+    return derivative(output, z, y) * g
+
+
+def _cross_entropy_delta(output: Activation, z: np.ndarray, y: np.ndarray, t: np.ndarray) -> np.ndarray:
+    if output.name == "sigmoid":
+        return output.steepness * (y - t)
+    if output.name == "softmax":
+        return y - t
+    # any other output: the chain rule through the clipped logarithms (a clipped term has slope 0)
+    slope = -t / np.maximum(y, PROBABILITY_CLIP) * (y > PROBABILITY_CLIP) + \
+        (1.0 - t) / np.maximum(1.0 - y, PROBABILITY_CLIP) * (1.0 - y > PROBABILITY_CLIP)
+    return derivative(output, z, y) * slope
+
+
+#: Each loss: its per-sample value (output activation, y, t) and its output delta dE/dz (output
+#: activation, z, y, t). A new loss needs both, and its formula text in book/formula_text.py.
+SAMPLE_LOSSES = {"squared": _squared_loss, "cross-entropy": _cross_entropy_loss}
+OUTPUT_DELTAS = {"squared": _squared_delta, "cross-entropy": _cross_entropy_delta}
+LOSSES = tuple(SAMPLE_LOSSES)
+
+
 def sample_loss(loss: str, output: Activation, y: np.ndarray, t: np.ndarray) -> np.ndarray:
     """Per-sample loss, shape (batch,).
 
@@ -111,13 +147,7 @@ def sample_loss(loss: str, output: Activation, y: np.ndarray, t: np.ndarray) -> 
     (binary, multilabel): -sum_k [t ln max(y, clip) + (1-t) ln max(1-y, clip)]; on a
     softmax output (one-of-K): -sum_k t_k ln max(y_k, clip).
     """
-    if loss == "squared":
-        return 0.5 * np.sum((t - y) ** 2, axis=1)
-    positive = t * np.log(np.maximum(y, PROBABILITY_CLIP))
-    if output.name == "softmax":
-        return -np.sum(positive, axis=1)
-    negative = (1.0 - t) * np.log(np.maximum(1.0 - y, PROBABILITY_CLIP))
-    return -np.sum(positive + negative, axis=1)
+    return SAMPLE_LOSSES[loss](output, y, t)
 
 
 def output_delta(loss: str, output: Activation, z: np.ndarray, y: np.ndarray, t: np.ndarray) -> np.ndarray:
@@ -128,19 +158,7 @@ def output_delta(loss: str, output: Activation, z: np.ndarray, y: np.ndarray, t:
     cross-entropy. Other pairs use the chain rule; softmax + squared uses its Jacobian
     y_j (g_j - sum_k g_k y_k) with g = y - t.
     """
-    g = y - t
-    if loss == "cross-entropy":
-        if output.name == "sigmoid":
-            return output.steepness * g
-        if output.name == "softmax":
-            return g
-        # any other output: the chain rule through the clipped logarithms (a clipped term has slope 0)
-        slope = -t / np.maximum(y, PROBABILITY_CLIP) * (y > PROBABILITY_CLIP) + \
-            (1.0 - t) / np.maximum(1.0 - y, PROBABILITY_CLIP) * (1.0 - y > PROBABILITY_CLIP)
-        return derivative(output, z, y) * slope
-    if output.name == "softmax":
-        return y * (g - np.sum(g * y, axis=1, keepdims=True))
-    return derivative(output, z, y) * g
+    return OUTPUT_DELTAS[loss](output, z, y, t)
 
 
 def check_pair(loss: str, output: Activation) -> None:

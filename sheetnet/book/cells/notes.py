@@ -47,9 +47,14 @@ def column_note(spec: BookSpec, key: tuple, where: str) -> str:
     return notes.get(kind, "")
 
 
+#: The loss column's note, by loss and by whether the output is a softmax.
+LOSS_NOTES = {
+    ("squared", False): "Loss of the case: 1/2 * sum over outputs of (target - output)^2.",
+    ("squared", True): "Loss of the case: 1/2 * sum over outputs of (target - output)^2.",
+    ("cross-entropy", True): "Cross-entropy: -sum over classes of target * LN(MAX(output, 1E-12)).",
+    ("cross-entropy", False): "Cross-entropy: -sum over outputs of t*LN(MAX(y,1E-12)) + (1-t)*LN(MAX(1-y,1E-12)).",
+}
+
+
 def _loss_note(spec: BookSpec) -> str:
-    if spec.loss == "squared":
-        return "Loss of the case: 1/2 * sum over outputs of (target - output)^2."
-    if spec.softmax:
-        return "Cross-entropy: -sum over classes of target * LN(MAX(output, 1E-12))."
-    return "Cross-entropy: -sum over outputs of t*LN(MAX(y,1E-12)) + (1-t)*LN(MAX(1-y,1E-12))."
+    return LOSS_NOTES[spec.loss, spec.softmax]
