@@ -90,6 +90,8 @@ def _record_lines(layout: BookLayout) -> list[tuple[str, str, str]]:
 
 SCALING_TEXT = {"standard": "standard: offset = mean, divisor = population standard deviation of the training rows",
                 "minmax": "min-max: offset = minimum, divisor = maximum - minimum of the training rows",
+                "given": "as the model states them (a scaler read from an ONNX graph): scaled = (raw - offset) / "
+                         "divisor",
                 "none": "none: offset 0, divisor 1"}
 
 

@@ -22,7 +22,7 @@ from sheetnet.net.activations import Activation, check_pair
 FORMAT = "sheetnet-model"
 VERSION = 1
 TASKS = ("binary", "multiclass", "multilabel", "regression")
-SCALING_METHODS = ("standard", "minmax")
+SCALING_METHODS = ("standard", "minmax", "given")  # given: offset and divisor read from elsewhere (ONNX)
 
 
 @dataclass(frozen=True)
@@ -88,6 +88,12 @@ class Model:
     def source_names(self, layer_index: int) -> tuple[str, ...]:
         """Names of what feeds a layer: the inputs, or the previous layer's units."""
         return self.inputs if layer_index == 0 else self.unit_names(layer_index - 1)
+
+    def to_onnx(self, dtype: str = "float64", threshold: float = 0.5, source: str = "", source_sha256: str = ""):
+        """The model as an ONNX ModelProto (``onnx.save(model.to_onnx(), path)``); needs the onnx extra."""
+        from sheetnet.onnxio.graph_out import model_to_onnx  # lazy: onnx is optional; graph_out imports no net
+
+        return model_to_onnx(self, dtype, threshold, source, source_sha256)
 
     def to_dict(self) -> dict[str, Any]:
         return {
