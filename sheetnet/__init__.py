@@ -20,6 +20,7 @@ from sheetnet.interop import from_sklearn
 from sheetnet.net.activations import Activation
 from sheetnet.net.model import Layer, Model, Scaling, load_model
 from sheetnet.net.train import TrainSettings
+from sheetnet.onnxio.convert import from_onnx
 from sheetnet.version import __version__
 
 _ESTIMATORS = ("SheetNetClassifier", "SheetNetRegressor")
@@ -36,5 +37,5 @@ def __getattr__(name: str):
 
 __all__ = ["Activation", "Layer", "Model", "Scaling", "SheetNetClassifier", "SheetNetError", "SheetNetRegressor",
            "TrainSettings", "__version__", "audit_workbook", "build_workbook", "compare_learning_rates",
-           "extract_model", "from_sklearn", "load_model", "report_html", "score", "settings", "train",
+           "extract_model", "from_onnx", "from_sklearn", "load_model", "report_html", "score", "settings", "train",
            "verify_workbook"]

@@ -40,7 +40,7 @@ from sheetnet.checks.audit import AuditReport, audit
 from sheetnet.checks.extract import extract
 from sheetnet.checks.verify import VERIFY_STAGES, VerifyReport, signature_of, verify
 from sheetnet.errors import TrainingError, UsageError
-from sheetnet.files import write_atomic
+from sheetnet.files import file_sha256, write_atomic
 from sheetnet.htmlreport import Section, loss_plot, page, write_html, write_report
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
@@ -49,6 +49,7 @@ from sheetnet.net.metrics import Metrics, evaluate
 from sheetnet.net.model import Model, load_model
 from sheetnet.net.predict import score_table
 from sheetnet.net.train import TrainSettings, stored_settings
+from sheetnet.onnxio.convert import from_onnx
 from sheetnet.rates import RateRun, best, compare_rates, summary_rows
 
 if TYPE_CHECKING:
@@ -57,6 +58,7 @@ if TYPE_CHECKING:
 #: The API; the command line reaches the stages only through these names.
 __all__ = [
     "ARCHITECTURE",
+    "MODEL_SUFFIXES",
     "RATES_NOTE",
     "SETTINGS",
     "SETTING_WORDS",
@@ -71,6 +73,7 @@ __all__ = [
     "audit_workbook",
     "build_workbook",
     "compare_learning_rates",
+    "export_onnx",
     "extract_model",
     "extract_with_note",
     "key_id",
@@ -110,7 +113,11 @@ def as_table(data, source: str = "data") -> dataio.DataTable:
     return dataio.table_from_frame(data, source)
 
 
-def as_model(model: Model | str | Path) -> Model:
+def as_model(model: Model | str | Path, data=None, inputs=None, classes=None, target=None) -> Model:
+    """A model, a model file (.json) or an ONNX graph (.onnx; ``inputs``, ``classes`` and ``target`` name
+    what the graph does not, else the data's numeric columns are its inputs)."""
+    if isinstance(model, str | Path) and Path(model).suffix.lower() == ".onnx":
+        return from_onnx(model, inputs, classes, target, None if data is None else as_table(data))
     return load_model(model) if isinstance(model, str | Path) else model
 
 
@@ -192,11 +199,13 @@ def plan_from_data(data, target=None, requested: Requested = SIZED_TO_FIT, max_c
 
 
 def plan_from_model(model: Model | str | Path, data=None, target=None, requested: Requested = SIZED_TO_FIT,
-                    max_cells: int = DEFAULT_MAX_CELLS, **setting_overrides) -> Plan:
+                    max_cells: int = DEFAULT_MAX_CELLS, inputs=None, classes=None, **setting_overrides) -> Plan:
     """The workbook of a given model: with data, scoring; with the data's targets, a record that
-    continues training from the model's weights with its stored settings, except those given."""
+    continues training from the model's weights with its stored settings, except those given.
+    ``inputs`` and ``classes`` name what an ONNX graph does not (see :func:`as_model`)."""
     source = str(model) if isinstance(model, str | Path) else "the model"
-    model, table = as_model(model), None if data is None else as_table(data)
+    table = None if data is None else as_table(data)
+    model = as_model(model, table, inputs, classes, target)
     if target is not None:
         _check_target(model, table, _columns(target), source)
         model = replace(model, target=_columns(target))
@@ -286,10 +295,34 @@ def extract_with_note(path, after_training: bool = False) -> tuple[Model, str]:
     return extract(path, after_training=after_training)
 
 
-def report_html(source, out, force: bool = False, data=None) -> Path:
-    """The HTML report of a model file (``data``: a CSV whose points the plots show) or a workbook, like
-    ``sheetnet report``."""
-    return write_report(source, out, force=force, data=data)
+def report_html(source, out, force: bool = False, data=None, inputs=None, classes=None) -> Path:
+    """The HTML report of a model file or ONNX graph (``data``: a CSV whose points the plots show) or a
+    workbook, like ``sheetnet report``."""
+    model = as_model(source, data, inputs, classes) if Path(source).suffix.lower() in MODEL_SUFFIXES else None
+    return write_report(source, out, force=force, data=data, model=model)
+
+
+#: Files that hold a model (anything else given to report or export is read as a workbook).
+MODEL_SUFFIXES = (".json", ".onnx")
+
+
+def export_onnx(source, out, after_training: bool = False, dtype: str = "float64", threshold: float | None = None,
+                force: bool = False, inputs=None, classes=None) -> str:
+    """Write a workbook's model (the parameters it holds now, or after the record's last step), a model
+    file's or a graph's as an ONNX graph, like ``sheetnet export``; a line saying what was written. The
+    label's threshold is ``threshold``, else the workbook's (or the one stored when it was extracted)."""
+    source = Path(source)
+    if source.suffix.lower() in MODEL_SUFFIXES:
+        if after_training:
+            raise UsageError("--after-training goes with a workbook (its training record); a model file holds "
+                             "one set of parameters")
+        model, note = as_model(source, None, inputs, classes), f"model read from {source.name}"
+    else:
+        model, note = extract(source, after_training=after_training)
+    chosen = threshold if threshold is not None else model.training.get("threshold", 0.5)
+    proto = model.to_onnx(dtype, float(chosen), source=source.name, source_sha256=file_sha256(source))
+    write_atomic(Path(out), lambda tmp: tmp.write_bytes(proto.SerializeToString()), force=force)
+    return f"{note}; {dtype} graph with threshold {float(chosen):g}"
 
 
 def compare_learning_rates(data, target, rates, holdout: float | str = "auto", init: Model | str | Path | None = None,

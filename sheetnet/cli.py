@@ -1,4 +1,5 @@
-"""The command line: ``sheetnet train | score | build | demo | verify | audit | extract | report | rates``.
+"""The command line: ``sheetnet train | score | build | demo | verify | audit | extract | report | rates |
+export | new-key``.
 
 Thin by design: parse flags, call the library, print a summary. Every :class:`SheetNetError`
 becomes one line on stderr and its exit code (1 bad data, 2 bad usage); nothing else prints
@@ -56,7 +57,8 @@ def cmd_train(args: argparse.Namespace) -> int:
 
 def cmd_score(args: argparse.Namespace) -> int:
     check_output(args.out, args.force, inputs=[args.model, args.data], kind="scores file")
-    model, table = api.as_model(args.model), api.as_table(args.data)
+    table = api.as_table(args.data)
+    model = api.as_model(args.model, table, args.inputs, args.classes)
     frame = api.score(model, table, args.threshold, keep_other_columns=not args.drop_other_columns)
     write_atomic(args.out, lambda tmp: frame.to_csv(tmp, index=False, float_format="%.17g"), force=args.force)
     try:
@@ -114,9 +116,12 @@ def cmd_new_key(args: argparse.Namespace) -> int:
 def _model_plan(args: argparse.Namespace, requested: api.Requested) -> api.Plan:
     """A given model's workbook (its record continues with the model's stored settings where a flag
     does not say otherwise), noting the flags the model makes meaningless."""
-    plan = api.plan_from_model(args.model, args.data, args.target, requested, args.max_cells, **setting_options(args))
+    graph = args.model.suffix.lower() == ".onnx"
+    plan = api.plan_from_model(args.model, args.data, args.target, requested, args.max_cells,
+                               inputs=args.inputs if graph else None, classes=args.classes, **setting_options(args))
     defaults = build_defaults()
-    ignored = [flag for flag in MODEL_FIXES if getattr(args, _dest(flag)) != defaults[_dest(flag)]]
+    fixed = [flag for flag in MODEL_FIXES if not (graph and flag == "--inputs")]
+    ignored = [flag for flag in fixed if getattr(args, _dest(flag)) != defaults[_dest(flag)]]
     if ignored:
         plan = replace(plan, notes=(*plan.notes, f"{', '.join(ignored)} ignored: the model file fixes them"))
     return plan
@@ -225,10 +230,10 @@ def cmd_extract(args: argparse.Namespace) -> int:
 
 def cmd_report(args: argparse.Namespace) -> int:
 
-    if args.data is not None and args.source.suffix.lower() != ".json":
+    if args.data is not None and args.source.suffix.lower() not in api.MODEL_SUFFIXES:
         raise UsageError("--data goes with a model file; a workbook's report plots the data it holds")
     check_output(args.out, args.force, inputs=[args.source, *([args.data] if args.data else [])], kind="HTML report")
-    api.report_html(args.source, args.out, force=args.force, data=args.data)
+    api.report_html(args.source, args.out, force=args.force, data=args.data, inputs=args.inputs, classes=args.classes)
     print(f"report written to {args.out}")
     return 0
 
@@ -250,9 +255,17 @@ def cmd_rates(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_export(args: argparse.Namespace) -> int:
+    check_output(args.out, args.force, inputs=[args.source], kind="ONNX file")
+    note = api.export_onnx(args.source, args.out, after_training=args.after_training, dtype=args.dtype,
+                           threshold=args.threshold, force=args.force, inputs=args.inputs, classes=args.classes)
+    print(f"{note}; written to {args.out}")
+    return 0
+
+
 COMMANDS = {"train": cmd_train, "score": cmd_score, "build": cmd_build, "demo": cmd_demo, "verify": cmd_verify,
             "audit": cmd_audit, "extract": cmd_extract, "report": cmd_report, "rates": cmd_rates,
-            "new-key": cmd_new_key}
+            "new-key": cmd_new_key, "export": cmd_export}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -8,6 +8,7 @@ before training) and :func:`write_atomic` last (temporary file in the same folde
 from __future__ import annotations
 
 import contextlib
+import hashlib
 import os
 import tempfile
 from collections.abc import Callable, Iterable, Iterator
@@ -17,7 +18,7 @@ from sheetnet.errors import SheetNetError, UsageError
 
 #: What each kind of output file must be called (a model written as "book.xlsx" helps nobody).
 OUTPUT_SUFFIXES = {"model file": (".json",), "workbook": (".xlsx",), "scores file": (".csv",),
-                   "HTML report": (".html", ".htm"), "JSON report": (".json",)}
+                   "HTML report": (".html", ".htm"), "JSON report": (".json",), "ONNX file": (".onnx",)}
 
 
 def check_output(path: Path, force: bool, inputs: Iterable[Path] = (), kind: str | None = None) -> Path:
@@ -91,3 +92,12 @@ def reading(path: Path, error: type[SheetNetError], missing: str, folder: str) -
         raise error(f"{path}: is a folder, not {folder}") from None
     except OSError as exc:
         raise error(f"{path}: cannot read ({exc.strerror})") from None
+
+
+def file_sha256(path: Path) -> str:
+    """The SHA-256 of a file's bytes (read in chunks: a workbook can be large), hex."""
+    digest = hashlib.sha256()
+    with Path(path).open("rb") as handle:
+        for chunk in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()

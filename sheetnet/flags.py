@@ -192,7 +192,10 @@ def command_parser() -> argparse.ArgumentParser:
     train_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="model file to write")
     build_p = commands.add_parser("build", help="write the network as a workbook of live formulas")
     add_train_flags(build_p, data_optional=True)
-    build_p.add_argument("--model", type=Path, help="write the workbook for this model file instead of training")
+    build_p.add_argument("--model", type=Path,
+                         help="write the workbook for this model file (.json) or ONNX graph (.onnx) instead of "
+                              "training")
+    add_graph_flags(build_p, inputs=False)
     build_p.add_argument("--trace-epochs", type=_count_or_zero,
                          help="epochs the training record replays, 0 for no record (default: as many as fit)")
     build_p.add_argument("--trace-rows", type=_count,
@@ -234,7 +237,8 @@ def command_parser() -> argparse.ArgumentParser:
     extract_p.add_argument("--force", action="store_true", help="overwrite an existing model file")
     extract_p.add_argument("--quiet", action="store_true", help="no progress bar (extract shows none)")
     report_p = commands.add_parser("report", help="an HTML report with plots for a model file or a workbook")
-    report_p.add_argument("source", type=Path, help="MODEL.json or BOOK.xlsx")
+    report_p.add_argument("source", type=Path, help="MODEL.json, MODEL.onnx or BOOK.xlsx")
+    add_graph_flags(report_p)
     report_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
     report_p.add_argument("--data", type=Path, help="for a model file: a CSV whose points the plots show")
     report_p.add_argument("--force", action="store_true", help="overwrite an existing report")
@@ -248,14 +252,36 @@ def command_parser() -> argparse.ArgumentParser:
     key_p.add_argument("keyfile", type=Path, help="key file to write (readable by you only)")
     key_p.add_argument("--force", action="store_true", help="overwrite an existing key file")
     score_p = commands.add_parser("score", help="score a CSV file with a model")
-    score_p.add_argument("model", type=Path)
+    score_p.add_argument("model", type=Path, help="MODEL.json or MODEL.onnx")
+    add_graph_flags(score_p)
     score_p.add_argument("data", type=Path)
     score_p.add_argument("--threshold", type=_fraction, default=0.5, help="decision threshold for probabilities")
     score_p.add_argument("--drop-other-columns", action="store_true",
                          help="leave out the table's columns that are not model inputs (ids, the target...)")
     score_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
     score_p.add_argument("--force", action="store_true")
+    export_p = commands.add_parser("export", help="write a workbook's (or a model file's) network as an ONNX graph")
+    export_p.add_argument("source", type=Path, help="BOOK.xlsx, MODEL.json or MODEL.onnx")
+    export_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="ONNX file to write")
+    export_p.add_argument("--after-training", action="store_true",
+                          help="a workbook's parameters after the last step of its training record")
+    export_p.add_argument("--dtype", choices=("float64", "float32"), default="float64",
+                          help="number type of the graph (float64 reproduces the workbook to 1e-12)")
+    export_p.add_argument("--threshold", type=_fraction,
+                          help="decision threshold of the graph's label (default: the workbook's, else 0.5)")
+    add_graph_flags(export_p)
+    export_p.add_argument("--force", action="store_true", help="overwrite an existing ONNX file")
     return parser
+
+
+def add_graph_flags(p: argparse.ArgumentParser, inputs: bool = True) -> None:
+    """Names an ONNX graph may not hold (a model file always does)."""
+    if inputs:
+        p.add_argument("--inputs", type=_columns,
+                       help="for an ONNX graph that names no features: its input columns in order (default: the "
+                            "data's numeric columns)")
+    p.add_argument("--classes", type=_columns,
+                   help="for an ONNX graph that names no classes: the class labels in output order")
 
 
 #: Training flag -> TrainSettings field.

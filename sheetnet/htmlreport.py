@@ -302,12 +302,14 @@ def data_points(model: Model, data: str | Path) -> tuple[np.ndarray, list[str] |
     return x, labels
 
 
-def write_report(source: str | Path, out: str | Path, force: bool = False, data: str | Path | None = None) -> Path:
-    """The HTML report of a model file (.json; ``data`` adds its points to the plots) or a workbook (.xlsx)."""
+def write_report(source: str | Path, out: str | Path, force: bool = False, data: str | Path | None = None,
+                 model: Model | None = None) -> Path:
+    """The HTML report of a model (``model``, read from ``source``; or a model file, .json) with ``data``'s
+    points in the plots, or of a workbook (.xlsx)."""
 
     source = Path(source)
-    if source.suffix.lower() == ".json":
-        model = load_model(source)
+    if model is not None or source.suffix.lower() == ".json":
+        model = model or load_model(source)
         sections = model_sections(model, *data_points(model, data)) if data is not None else model_sections(model)
     else:
         sections = book_sections(source)

@@ -120,6 +120,11 @@ def provenance(model: Model, table: dataio.DataTable | None, settings: TrainSett
         lines.append(("scoring", f"{extent.scoring:,} of {len(table.rows):,} cases (the record's and evenly spaced "
                                  "others)"))
     lines += [(f"metrics over all data ({what})", metrics_text(m)) for what, m in metrics]
+    if isinstance(model.training.get("source"), str):
+        lines.append(("model source", model.training["source"]))
+    if model.training.get("float32") is True:
+        lines.append(("precision", "the model's float32 weights are computed in float64 here, so its outputs agree "
+                                   "with a float32 runtime's to float32 rounding (about 1e-6 relative)"))
     trained = model.training.get("final_loss")
     if trained is not None:
         lines.append(("trained model", f"final training loss {trained!r}"))

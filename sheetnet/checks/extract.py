@@ -47,7 +47,7 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
             layers, note = _final_layers(book, layout, inputs, description.original, alignment)
         model = inputs.model(layout.spec, layers=layers)
         training = {"extracted_from": Path(path).name, "after_training": after_training,
-                    "provenance": dict(layout.spec.provenance)}
+                    "threshold": inputs.threshold, "provenance": dict(layout.spec.provenance)}
         return replace(model, training=training), note
 
 

@@ -18,6 +18,7 @@ import numpy as np
 from sheetnet.errors import ModelFileError
 from sheetnet.files import write_text_atomic
 from sheetnet.net.activations import Activation, check_pair
+from sheetnet.onnxio.graph_out import model_to_onnx  # imports no net module: no cycle
 
 FORMAT = "sheetnet-model"
 VERSION = 1
@@ -91,8 +92,6 @@ class Model:
 
     def to_onnx(self, dtype: str = "float64", threshold: float = 0.5, source: str = "", source_sha256: str = ""):
         """The model as an ONNX ModelProto (``onnx.save(model.to_onnx(), path)``); needs the onnx extra."""
-        from sheetnet.onnxio.graph_out import model_to_onnx  # lazy: onnx is optional; graph_out imports no net
-
         return model_to_onnx(self, dtype, threshold, source, source_sha256)
 
     def to_dict(self) -> dict[str, Any]:

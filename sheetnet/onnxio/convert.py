@@ -13,6 +13,7 @@ from sheetnet.errors import ModelFileError, UsageError
 from sheetnet.net import data as dataio
 from sheetnet.net.activations import Activation
 from sheetnet.net.model import Layer, Model, Scaling, model_from_dict
+from sheetnet.onnxio import require_onnx
 from sheetnet.onnxio.graph_in import GraphNetwork, read_graph
 
 #: The largest ONNX file read (a small network's graph is kilobytes; this refuses a stray large file).
@@ -21,7 +22,7 @@ MAX_BYTES = 200 * 1024 * 1024
 
 def load_graph(path: str | Path):
     """The ModelProto in an ONNX file, read without following external data."""
-    import onnx  # lazy: onnx is an optional extra (pip install 'sheetnet[onnx]')
+    onnx = require_onnx()
 
     path = Path(path)
     try:
@@ -43,7 +44,8 @@ def from_onnx(source, inputs=None, classes=None, target=None, data: dataio.DataT
     task, labels = _task(net, n_out, _names(classes))
     targets = _names(target) or tuple(json.loads(net.metadata.get("sheetnet.target", "[]")))
     outputs = _outputs(task, labels, targets, n_out)
-    layers = tuple(Layer(w, b, Activation(name)) for w, b, name in net.layers)
+    layers = tuple(Layer(w, b, Activation(name, steepness, midpoint) if name == "sigmoid" else Activation(name))
+                   for w, b, name, midpoint, steepness in net.layers)
     scaling = None if net.offset is None else Scaling("given", np.array(net.offset), np.array(net.divisor))
     where = str(source) if isinstance(source, str | Path) else "an ONNX model"
     model = Model(inputs=features, outputs=outputs, task=task, layers=layers,

@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from sheetnet.errors import UsageError
+from sheetnet.onnxio import require_onnx
 
 ACTIVATION_OPS = {"Sigmoid": "sigmoid", "Tanh": "tanh", "Relu": "relu", "Softmax": "softmax"}
 UNCHANGED_OPS = ("Cast", "Identity", "Flatten", "Reshape", "Dropout")
@@ -38,10 +39,11 @@ FLOAT_TYPES = (1, 10, 11, 16)  # FLOAT, FLOAT16, DOUBLE, BFLOAT16
 
 @dataclass
 class GraphNetwork:
-    """What the graph says, as plain data: per layer (weights (units, fan_in), bias, activation name),
+    """What the graph says, as plain data: per layer (weights (units, fan_in), bias, activation name, its
+    midpoint and steepness),
     the input scaling (offset, divisor; None when there is none), feature and class names when present."""
 
-    layers: list[tuple[np.ndarray, np.ndarray, str]] = field(default_factory=list)
+    layers: list[tuple[np.ndarray, np.ndarray, str, float, float]] = field(default_factory=list)
     offset: np.ndarray | None = None
     divisor: np.ndarray | None = None
     features: tuple[str, ...] = ()
@@ -60,9 +62,7 @@ class _Reader:
     """One walk along the graph's main path, from the input to the network's output."""
 
     def __init__(self, graph):
-        from onnx import numpy_helper  # lazy: onnx is an optional extra, imported only when a graph is read
-
-        self.to_array = numpy_helper.to_array
+        self.to_array = require_onnx().numpy_helper.to_array
         self.graph = graph
         self.constants = {t.name: self.to_array(t) for t in graph.initializer}
         for node in graph.node:
@@ -77,8 +77,9 @@ class _Reader:
         self.outputs = {o.name for o in graph.output}
         self.net = GraphNetwork()
         self.width = 0
-        self.affine = None  # (a, b): scaled = a * x + b, before the first layer
+        self.scaling = (np.zeros(1), np.ones(1))  # scaled = (x - offset) / divisor, before the first layer
         self.pending = None  # (weights, bias) of a layer whose activation is not read yet
+        self.shape = None  # (midpoint, steepness) written as Sub and Mul before a Sigmoid
 
     def start(self) -> str:
         inputs = [i for i in self.graph.input if i.name not in self.constants]
@@ -170,26 +171,32 @@ class _Reader:
         """Add after a MatMul is its bias; Sub/Div/Mul/Add with a constant before any layer is scaling."""
         other = node.input[1] if node.input[0] == current else node.input[0]
         value = self._constant(node, other).ravel()
-        if self.pending is not None and node.op_type == "Add":
+        if self.pending is not None and node.op_type == "Add" and self.shape is None:
             weights, bias = self.pending
             self.pending = (weights, bias + np.broadcast_to(value, bias.shape))
+            return
+        if self.pending is not None and node.op_type in ("Sub", "Mul") and value.size == 1:
+            midpoint, steepness = self.shape or (0.0, 1.0)
+            self.shape = (float(value[0]), steepness) if node.op_type == "Sub" else (midpoint, float(value[0]))
             return
         if self.net.layers or self.pending is not None:
             raise _fail(node, "arithmetic between layers that is not a bias")
         if node.input[0] != current and node.op_type in ("Sub", "Div"):
             raise _fail(node, "the data is its second operand")
-        a, b = self.affine or (np.ones(1), np.zeros(1))
-        a, b = {"Sub": (a, b - value), "Add": (a, b + value), "Mul": (a * value, b * value),
-                "Div": (a / value, b / value)}[node.op_type]
-        self.affine = (a, b)
+        offset, divisor = self.scaling
+        with np.errstate(divide="ignore", invalid="ignore"):  # a division by 0 is refused, in words, at the end
+            self.scaling = {"Sub": (offset + value * divisor, divisor), "Add": (offset - value * divisor, divisor),
+                            "Div": (offset, divisor * value), "Mul": (offset, divisor / value)}[node.op_type]
 
     def _scale(self, node) -> None:
+        """The ai.onnx.ml Scaler: (x - offset) * scale."""
         if self.net.layers or self.pending is not None:
             raise _fail(node, "a scaler between layers")
-        offset = np.asarray(_attribute(node, "offset", [0.0]), float)
+        offset, divisor = self.scaling
+        shift = np.asarray(_attribute(node, "offset", [0.0]), float)
         scale = np.asarray(_attribute(node, "scale", [1.0]), float)
-        a, b = self.affine or (np.ones(1), np.zeros(1))
-        self.affine = (a * scale, (b - offset) * scale)
+        with np.errstate(divide="ignore", invalid="ignore"):  # a scale of 0 is refused, in words, at the end
+            self.scaling = (offset + shift * divisor, divisor / scale)
 
     def _unchanged(self, node) -> None:
         if node.op_type == "Cast" and _attribute(node, "to", 1) not in FLOAT_TYPES:
@@ -211,22 +218,25 @@ class _Reader:
                 raise UsageError(f"an activation ({activation}) with no dense layer before it")
             return
         weights, bias = self.pending
-        self.pending = None
+        self.pending, shape, self.shape = None, self.shape, None
+        if shape is not None and activation != "sigmoid":
+            raise UsageError(f"a shift or scale of the weighted sums before {activation} (sheetnet reads one only "
+                             "before a Sigmoid: its midpoint and steepness)")
         if not self.net.layers:
             self._finish_scaling(weights.shape[1])
         elif weights.shape[1] != self.net.layers[-1][0].shape[0]:
             raise UsageError(f"a dense layer takes {weights.shape[1]} values, and the layer before gives "
                              f"{self.net.layers[-1][0].shape[0]}")
-        self.net.layers.append((weights, bias, activation))
+        self.net.layers.append((weights, bias, activation, *(shape or (0.0, 1.0))))
 
     def _finish_scaling(self, width: int) -> None:
-        if self.affine is None:
+        offset, divisor = (np.broadcast_to(v, (width,)).astype(float) for v in self.scaling)
+        if np.all(offset == 0) and np.all(divisor == 1):
             return
-        a, b = (np.broadcast_to(v, (width,)).astype(float) for v in self.affine)
-        if np.any(a == 0) or not np.all(np.isfinite(a)) or not np.all(np.isfinite(b)):
-            raise UsageError("the ONNX graph's input scaling multiplies a feature by 0 (or by a value that is not "
-                             "finite)")
-        self.net.divisor, self.net.offset = 1.0 / a, -b / a
+        if np.any(divisor == 0) or not np.all(np.isfinite(divisor)) or not np.all(np.isfinite(offset)):
+            raise UsageError("the ONNX graph's input scaling multiplies a feature by 0 or divides it by 0 (or by a "
+                             "value that is not finite)")
+        self.net.offset, self.net.divisor = offset, divisor
 
     def _endings(self) -> None:
         """Class labels from the endings scikit-learn's converter writes, or from sheetnet's metadata."""
@@ -244,17 +254,15 @@ def _text(value) -> str:
 
 
 def _attribute(node, name: str, default):
-    from onnx import helper  # lazy: onnx is an optional extra
-
     for attribute in node.attribute:
         if attribute.name == name:
-            return helper.get_attribute_value(attribute)
+            return require_onnx().helper.get_attribute_value(attribute)
     return default
 
 
 def read_graph(proto) -> GraphNetwork:
     """The network in an ONNX ModelProto (checked with ``onnx.checker`` first)."""
-    import onnx  # lazy: onnx is an optional extra
+    onnx = require_onnx()
 
     try:
         onnx.checker.check_model(proto)

@@ -17,6 +17,8 @@ import json
 
 import numpy as np
 
+from sheetnet.errors import UsageError
+from sheetnet.onnxio import require_onnx
 from sheetnet.version import __version__
 
 #: Opset and IR version: ONNX 1.12 and onnxruntime 1.14 or newer load them.
@@ -29,9 +31,8 @@ class _Graph:
     """Nodes and constants added in order; each new tensor gets a fresh name."""
 
     def __init__(self, dtype: str):
-        from onnx import helper, numpy_helper  # lazy: onnx is an optional extra (pip install 'sheetnet[onnx]')
-
-        self.helper, self.numpy_helper = helper, numpy_helper
+        onnx = require_onnx()
+        self.helper, self.numpy_helper = onnx.helper, onnx.numpy_helper
         self.numpy_type, self.onnx_type = DTYPES[dtype]
         self.nodes, self.constants, self.count = [], [], 0
 
@@ -83,10 +84,10 @@ def _label(g: _Graph, model, y: str, threshold: float) -> str | None:
 def model_to_onnx(model, dtype: str = "float64", threshold: float = 0.5, source: str = "",
                   source_sha256: str = ""):
     """The model as an ONNX ModelProto (checked with ``onnx.checker``)."""
-    import onnx  # lazy: onnx is an optional extra
+    onnx = require_onnx()
 
     if dtype not in DTYPES:
-        raise ValueError(f"dtype must be float64 or float32, got {dtype!r}")
+        raise UsageError(f"dtype must be float64 or float32, got {dtype!r}")
     g = _Graph(dtype)
     h = "features"
     if model.scaling is not None:
