@@ -22,13 +22,13 @@ SIZES = {"10k": 10_000, "100k": 100_000, "1M": 1_000_000}
 
 
 def _table(rows: int):
-    from sheetnet.net.data import Table
+    from sheetnet.net.data import DataTable
 
     rng = np.random.default_rng(1)
     x = rng.normal(size=(rows, 4)).round(4)
     label = np.where(x[:, 0] * x[:, 1] + x[:, 2] > 0, "yes", "no")
     body = tuple((*(repr(float(v)) for v in row), lab) for row, lab in zip(x, label, strict=True))
-    return Table(source="bench.csv", header=("a", "b", "c", "d", "label"), rows=body,
+    return DataTable(source="bench.csv", header=("a", "b", "c", "d", "label"), rows=body,
                  lines=tuple(range(2, rows + 2)))
 
 
