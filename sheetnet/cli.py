@@ -61,6 +61,9 @@ def cmd_score(args: argparse.Namespace) -> int:
     model = api.as_model(args.model, table, args.inputs, args.classes)
     frame = api.score(model, table, args.threshold, keep_other_columns=not args.drop_other_columns)
     write_atomic(args.out, lambda tmp: frame.to_csv(tmp, index=False, float_format="%.17g"), force=args.force)
+    if args.threshold != 0.5 and model.task not in ("binary", "multilabel"):
+        print(f"note: --threshold is ignored: a {model.task} model " + ("predicts the most probable class"
+              if model.task == "multiclass" else "has no decision threshold"))
     try:
         metrics = api.score_metrics(model, table, args.threshold)
         if metrics is not None:
@@ -90,7 +93,8 @@ def cmd_build(args: argparse.Namespace) -> int:
         notes.append(f"signed with key id {api.key_id(key)}")
     for note in notes:
         print(f"note: {note}")
-    record = "" if result.layout.record is None else f", training record of {result.layout.record.nrows:,} rows"
+    rows = 0 if result.layout.record is None else result.layout.record.nrows
+    record = f", training record of {rows:,} row{'' if rows == 1 else 's'}" if rows else ""
     print(f"workbook written to {result.path}: {result.formula_cells:,} formula cells{record}")
     return 0
 

@@ -34,7 +34,8 @@ def check_output(path: Path, force: bool, inputs: Iterable[Path] = (), kind: str
         if _same_file(target, Path(source)):
             raise UsageError(f"{path}: output would overwrite the input file {source}")
     if kind is not None and target.suffix.lower() not in OUTPUT_SUFFIXES[kind]:
-        raise UsageError(f"{path}: a {kind} must be named *{' or *'.join(OUTPUT_SUFFIXES[kind])}, "
+        article = "an" if kind[0] in "AEFHILMNORSX" else "a"  # an HTML, an ONNX; a model, a workbook
+        raise UsageError(f"{path}: {article} {kind} must be named *{' or *'.join(OUTPUT_SUFFIXES[kind])}, "
                          f"not *{target.suffix or ' (no extension)'}")
     if target.exists() and not force:
         raise UsageError(f"{path}: output file exists; use --force to overwrite it")

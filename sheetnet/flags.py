@@ -120,9 +120,14 @@ class _Batch(argparse.Action):
 
 
 def _rates(text: str) -> list[float]:
-    rates = [_positive(part) for part in text.split(",") if part.strip()]
+    parts = [part.strip() for part in text.split(",")]
+    if "" in parts:
+        raise argparse.ArgumentTypeError(f"an empty learning rate in {text!r}: separate rates with single commas")
+    rates = [_positive(part) for part in parts]
     if len(rates) < 2:
         raise argparse.ArgumentTypeError(f"give at least two learning rates, got {text!r}")
+    if len(set(rates)) < len(rates):
+        raise argparse.ArgumentTypeError(f"a learning rate given twice in {text!r}")
     return rates
 
 
@@ -148,7 +153,9 @@ def add_train_flags(p: argparse.ArgumentParser, data_optional: bool = False) -> 
         p.add_argument("data", type=Path, nargs="?", help="CSV file with a header row")
     else:
         p.add_argument("data", type=Path, help="CSV file with a header row")
-    p.add_argument("--target", type=_columns, help="target column(s), comma-separated")
+    p.add_argument("--target", type=_columns,
+                   help="target column(s), comma-separated (needed to train; with --model: the data's name for the "
+                        "model's target)")
     p.add_argument("--inputs", type=_columns, help="input columns (default: every other column)")
     p.add_argument("--hidden", type=_hidden, default=(4,), help="hidden layer sizes, e.g. 8,4, or 'none'")
     p.add_argument("--activation", choices=("sigmoid", "tanh", "relu", "identity"), default="sigmoid",
@@ -178,7 +185,8 @@ def add_train_flags(p: argparse.ArgumentParser, data_optional: bool = False) -> 
                    help="input scaling fitted on the training rows")
     p.add_argument("--holdout", type=_holdout, default="auto",
                    help="fraction of rows held out (default auto: 0.2 from 50 rows on, else 0)")
-    p.add_argument("--init", type=Path, help="start from this model file (architecture, activations, scaling)")
+    p.add_argument("--init", type=Path,
+                   help="start from this model file's weights, architecture and scaling (default: random weights)")
     p.add_argument("--force", action="store_true", help="overwrite an existing output file")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
@@ -254,12 +262,13 @@ def command_parser() -> argparse.ArgumentParser:
     score_p = commands.add_parser("score", help="score a CSV file with a model")
     score_p.add_argument("model", type=Path, help="MODEL.json or MODEL.onnx")
     add_graph_flags(score_p)
-    score_p.add_argument("data", type=Path)
+    score_p.add_argument("data", type=Path, help="CSV file of cases to score")
     score_p.add_argument("--threshold", type=_fraction, default=0.5, help="decision threshold for probabilities")
     score_p.add_argument("--drop-other-columns", action="store_true",
                          help="leave out the table's columns that are not model inputs (ids, the target...)")
-    score_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True)
-    score_p.add_argument("--force", action="store_true")
+    score_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True,
+                         help="scores file to write (.csv)")
+    score_p.add_argument("--force", action="store_true", help="overwrite an existing scores file")
     export_p = commands.add_parser("export", help="write a workbook's (or a model file's) network as an ONNX graph")
     export_p.add_argument("source", type=Path, help="BOOK.xlsx, MODEL.json or MODEL.onnx")
     export_p.add_argument("-o", "--output-file", dest="out", type=Path, required=True, help="ONNX file to write")

@@ -260,8 +260,6 @@ def write_html(path: Path, text: str, force: bool) -> Path:
 
 def book_sections(path: Path) -> list[Section]:
     """A workbook's report: its model, the training record's loss, holdout metrics, and its verification."""
-
-
     book = read_returned_workbook(path)
     layout, _ = read_layout(book)
     inputs = read_inputs(book, layout)
@@ -285,6 +283,12 @@ def book_sections(path: Path) -> list[Section]:
         sections.insert(1, Section("Training record", ["Mean loss per epoch of the record, as the reference "
                                                        "trainer replays it from the workbook's inputs."],
                                    [loss_plot({"record": numbers.record.epoch_loss.tolist()}, "training record")]))
+    if spec.case_rows:
+        overall = [f"{what}: {text}" for what, text in spec.provenance if what.startswith("metrics over all data")]
+        sections.insert(1, Section("A sample of the data", [
+            f"The Scoring sheet holds a sample of {spec.n_cases:,} cases, so the metrics and plots here are over "
+            "that sample only." + (" The trainer's metrics over all data, from the Guide:" if overall else ""),
+            *overall], []))
     sections.append(Section("Verification", verify_lines(verify(path)), []))
     return sections
 

@@ -72,7 +72,7 @@ def best(runs: list[RateRun]) -> RateRun | None:
 
 
 def summary_rows(runs: list[RateRun]) -> list[list[object]]:
-    rows: list[list[object]] = [["learning rate", "final training loss", "holdout loss", "verdict"]]
+    rows: list[list[object]] = [["learning rate", "last epoch's mean training loss", "holdout loss", "verdict"]]
     for run in runs:
         rows.append([run.rate, run.curve[-1] if run.curve else "-",
                      run.holdout_loss if run.holdout_loss is not None else "-", run.status])

@@ -33,6 +33,8 @@ def summary_lines(outcome: FitOutcome) -> list[str]:
              f"rows: {len(outcome.train_rows)} training, {len(outcome.holdout_rows)} holdout"]
     epochs = len(result.epoch_loss)
     every = max(1, epochs // 10)
+    lines.append("per epoch: mean loss and accuracy over the epoch's cases as it ran (before each step's update); "
+                 "the final model's figures follow")
     for e in range(epochs):
         if (e + 1) % every == 0 or e == 0 or e == epochs - 1:
             acc = result.epoch_accuracy[e]

@@ -186,12 +186,13 @@ def test_divergence_is_one_line_naming_the_epoch(tmp_path, run_cli):
     (["extract", "{book}", "-o"], "model.xlsx", "model file"),
     (["verify", "{book}", "--json"], "report.txt", "JSON report"),
     (["audit", "{book}", "--annotate"], "marked.csv", "workbook"),
-], ids=["train", "build", "score", "report", "extract", "verify", "audit"])
+    (["export", "{book}", "-o"], "model.json", "ONNX file"),
+], ids=["train", "build", "score", "report", "extract", "verify", "audit", "export"])
 def test_output_names_must_say_what_they_hold(command, output, kind, good_csv, tmp_path, run_cli):
     model, book = tmp_path / "m.json", tmp_path / "b.xlsx"
     assert run_cli("train", good_csv, "--target", "label", "--epochs", "1", "-o", model)[0] == 0
     assert run_cli("build", good_csv, "--target", "label", "--epochs", "1", "-o", book)[0] == 0
     args = [a.format(data=good_csv, model=model, book=book) for a in command] + [str(tmp_path / output)]
     code, _out, err = run_cli(*args)
-    assert code == 2 and f"a {kind} must be named" in err
+    assert code == 2 and f"{'an' if kind[0] in 'HO' else 'a'} {kind} must be named" in err
     assert not (tmp_path / output).exists()

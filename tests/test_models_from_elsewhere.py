@@ -122,7 +122,8 @@ def test_a_long_table_gets_a_stated_scoring_sample(tmp_path, run_cli):
     code, out, err = run_cli("build", data, "--target", "y", "--epochs", "2", "--max-cells", "60000", "--quiet",
                              "-o", tmp_path / "b.xlsx")
     assert code == 0, err
-    held = int(re.search(r"the Scoring sheet holds ([\d,]+) of the 30,000 cases", out).group(1).replace(",", ""))
+    held = int(re.search(r"the Scoring sheet holds a sample: ([\d,]+) of the 30,000 cases", out).group(1)
+               .replace(",", ""))
     assert 0 < held < 30_000 and _cells(out) <= 60_000
     description = json.loads("".join(c.value for (c,) in openpyxl.load_workbook(tmp_path / "b.xlsx")[
         "sheetnet_layout"].iter_rows(min_row=2, max_col=1) if c.value))
@@ -201,7 +202,8 @@ def test_build_model_checks_the_target_flag_and_says_which_flags_it_ignores(wine
 
 @pytest.mark.parametrize("key, value, says", [("learning_rate", -1, "learning rate must be a positive number"),
                                               ("epochs", 0, "epochs must be a whole number >= 1"),
-                                              ("batch_size", "half", "expected a whole number"),
+                                              ("batch_size", "half", "batch_size: expected a whole number"),
+                                              ("seed", 1.5, "seed: expected a whole number"),
                                               ("momentum", 1.5, "momentum must be in [0, 1)")])
 def test_stored_settings_that_are_not_valid_are_refused_not_replaced(wine, tmp_path, run_cli, key, value, says):
     data = wine / "wine.csv"
@@ -235,3 +237,56 @@ def test_hundreds_of_unknown_labels_make_one_readable_line(tmp_path, run_cli, xo
     code, _, err = run_cli("build", "--model", tmp_path / "m.json", data, "-o", tmp_path / "b.xlsx")
     assert code == 1 and "300 label(s) the model does not know" in err and "and 290 more" in err
     assert len(err) < 400 and len(err.strip().splitlines()) == 1
+
+
+def test_a_model_file_naming_a_key_twice_is_refused(wine, tmp_path, run_cli):
+    """JSON (RFC 8259, section 4) leaves repeated names undefined: readers keep the first or the last."""
+    assert run_cli("train", wine / "wine.csv", "--target", "target", "--epochs", "2", "--quiet", "-o",
+                   tmp_path / "m.json")[0] == 0
+    text = (tmp_path / "m.json").read_text().replace('"task":', '"task": "regression", "task":', 1)
+    (tmp_path / "twice.json").write_text(text)
+    code, _, err = run_cli("score", tmp_path / "twice.json", wine / "wine.csv", "-o", tmp_path / "s.csv")
+    assert code == 1 and "'task' appears twice" in err and not (tmp_path / "s.csv").exists()
+
+
+def test_a_partial_record_is_the_start_of_the_real_run(wine, tmp_path, run_cli):
+    """With fewer rows than the run has, the record replays the run's own first steps (the same cases in
+    the same order as the full record), not a separate run on a subset."""
+    data = wine / "wine.csv"
+    flags = ["--target", "target", "--epochs", "3", "--batch-size", "4", "--quiet"]
+    assert run_cli("build", data, *flags, "--trace-epochs", "1", "-o", tmp_path / "full.xlsx")[0] == 0
+    code, out, _ = run_cli("build", data, *flags, "--trace-epochs", "1", "--trace-rows", "10", "-o",
+                           tmp_path / "part.xlsx")
+    assert code == 0 and "the run's first 2 steps (8 cases, within epoch 1 of 3" in out
+
+    def cases(path):
+        rows = list(openpyxl.load_workbook(path)["Training record"].iter_rows(values_only=True))
+        header = next(n for n, r in enumerate(rows) if r[0] == "step")
+        return [r[2] for r in rows[header + 1:] if isinstance(r[0], int)]
+
+    assert cases(tmp_path / "part.xlsx") == cases(tmp_path / "full.xlsx")[:8]
+    assert run_cli("verify", tmp_path / "part.xlsx", "--quiet")[0] == 0
+
+
+def test_without_a_record_the_scoring_sample_uses_the_whole_cap(tmp_path, run_cli):
+    rng = np.random.default_rng(5)
+    rows = [[*r, int(r[0] > 0)] for r in rng.normal(size=(20_000, 3)).round(4).tolist()]
+    data = write_csv(tmp_path / "long.csv", ["a", "b", "c", "y"], rows)
+    code, out, err = run_cli("build", data, "--target", "y", "--epochs", "1", "--trace-epochs", "0",
+                             "--max-cells", "100000", "--quiet", "-o", tmp_path / "b.xlsx")
+    assert code == 0, err
+    assert _cells(out) > 90_000 and "evenly spaced cases" in out and "the record's" not in out
+
+
+def test_size_flags_beyond_the_run_and_ignored_thresholds_are_said(wine, tmp_path, run_cli):
+    data = wine / "wine.csv"
+    code, out, _ = run_cli("build", data, "--target", "target", "--epochs", "2", "--trace-epochs", "9",
+                           "--scoring-rows", "5", "--quiet", "-o", tmp_path / "b.xlsx")
+    assert code == 0 and "--trace-epochs 9 is more than the run's 2 epochs" in out
+    assert "--scoring-rows 5 is fewer than the" in out
+    assert run_cli("train", data, "--target", "target", "--epochs", "2", "--quiet", "-o", tmp_path / "m.json")[0] == 0
+    code, out, _ = run_cli("score", tmp_path / "m.json", data, "--threshold", "0.3", "-o", tmp_path / "s.csv")
+    assert code == 0 and "--threshold is ignored: a multiclass model predicts the most probable class" in out
+    for rates in ("0.1,0.1", "0.1,,0.2"):
+        code, _, err = run_cli("rates", data, "--target", "target", "--rates", rates, "-o", tmp_path / "r.html")
+        assert code == 2 and "rates" in err

@@ -12,7 +12,7 @@ from sheetnet.book.describe import describe, description_text
 from sheetnet.book.expected import expected_numbers
 from sheetnet.book.layout import BookLayout, build_layout
 from sheetnet.book.signing import CellDigests, sign
-from sheetnet.book.sizing import Costs, Extent, Requested, choose, describe_extent, scoring_sample
+from sheetnet.book.sizing import Costs, Extent, Requested, choose, describe_extent, record_words, scoring_sample
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.book.write import write_book
 from sheetnet.errors import WorkbookFormatError
@@ -62,14 +62,21 @@ def _case_rows(model: Model, table: dataio.DataTable, kind: str) -> tuple[tuple[
 
 
 def record_schedule(train_rows: np.ndarray, settings: TrainSettings, epochs: int, rows: int) -> RecordSpec:
-    """The steps of the record: the trainer's own batches for the first ``epochs`` on the first ``rows``
-    training rows (on all of them, exactly the trainer's run)."""
-    rows = train_rows[:rows]
-    steps, epoch_of = [], []
-    for e, batches in enumerate(epoch_batches(len(rows), settings, epochs), start=1):
+    """The steps of the record: the trainer's own batches, from the run's start. All of the first
+    ``epochs`` epochs when ``rows`` covers every training row; else only the run's first steps, as many
+    as ``epochs * rows`` cases allow (at least one), so the record is always the start of the real run."""
+    budget = len(train_rows) * epochs if rows >= len(train_rows) else max(1, epochs * rows)
+    steps, epoch_of, used = [], [], 0
+    for e, batches in enumerate(epoch_batches(len(train_rows), settings, epochs), start=1):
         for batch in batches:
-            steps.append(tuple(int(c) for c in rows[batch]))
+            cases = tuple(int(c) for c in train_rows[batch])
+            if steps and used + len(cases) > budget:
+                break
+            steps.append(cases)
             epoch_of.append(e)
+            used += len(cases)
+        if used >= budget:
+            break
     return RecordSpec(steps=tuple(steps), epochs=tuple(epoch_of), momentum=settings.momentum > 0,
                       l2=settings.l2 > 0)
 
@@ -107,7 +114,8 @@ def make_inputs(model: Model, table: dataio.DataTable | None, kind: str, setting
 
 
 def provenance(model: Model, table: dataio.DataTable | None, settings: TrainSettings | None, extent: Extent | None,
-               metrics: list[tuple[str, Metrics]], extra: list[tuple[str, str]]) -> list[tuple[str, str]]:
+               metrics: list[tuple[str, Metrics]], extra: list[tuple[str, str]], record_words: str = ""
+               ) -> list[tuple[str, str]]:
     lines = [("tool", f"sheetnet {__version__}")]
     if table is not None:
         lines += [("data file", Path(table.source).name), ("data SHA-256", fingerprint(table)),
@@ -115,7 +123,7 @@ def provenance(model: Model, table: dataio.DataTable | None, settings: TrainSett
         lines += [("data note", note) for note in table.notes]
     if settings is not None and extent is not None and extent.epochs:
         lines += [("training settings", ", ".join(f"{k}={v}" for k, v in settings.to_dict().items()))]
-        lines += [("record", f"epochs 1-{extent.epochs} of {settings.epochs}, on {extent.rows:,} training rows")]
+        lines += [("record", record_words)]
     if extent is not None and extent.scoring is not None:
         lines.append(("scoring", f"{extent.scoring:,} of {len(table.rows):,} cases (the record's and evenly spaced "
                                  "others)"))
@@ -127,7 +135,8 @@ def provenance(model: Model, table: dataio.DataTable | None, settings: TrainSett
                                    "with a float32 runtime's to float32 rounding (about 1e-6 relative)"))
     trained = model.training.get("final_loss")
     if trained is not None:
-        lines.append(("trained model", f"final training loss {trained!r}"))
+        lines.append(("trained model", f"last epoch's mean training loss {trained!r} (over the epoch's cases as it "
+                                       "ran, before each step's update)"))
     return lines + extra
 
 
@@ -256,8 +265,9 @@ def plan_workbook(model: Model, table: dataio.DataTable, settings: TrainSettings
     needed = np.array([c for step in record.steps for c in step] if record else [], dtype=int)
     cases = scoring_sample(len(table.rows), extent.scoring, needed)
     sample = _subset(table, cases)
-    notes = describe_extent(extent, size, len(cases), len(table.rows), requested)
-    lines = provenance(model, table, run if record else None, extent, metrics, extra)
+    words = record_words(record, len(train_rows), run.epochs) if record else ""
+    notes = describe_extent(extent, size, len(cases), len(table.rows), requested, words, bool(metrics))
+    lines = provenance(model, table, run if record else None, extent, metrics, extra, words)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
     if len(cases) < len(table.rows):
         spec = replace(spec, case_rows=tuple(int(c) + 1 for c in cases))

@@ -41,7 +41,11 @@ def _name_meaning(name: str) -> str:
 
 
 def _scoring_line(spec) -> str:
-    """What the Scoring sheet holds, for the data it was built from (a target or none; classes or values)."""
+    """What the Scoring sheet holds, for the data it was built from (a target or none; classes or values;
+    every case or a sample)."""
+    if spec.case_rows:
+        return (f"A sample of the data: {spec.n_cases:,} cases, each numbered by its row in the data file (see "
+                "'scoring' under Provenance), one formula row per case; its summary is over the sample only.")
     if not spec.has_targets:
         return ("The data, one formula row per case (scaled inputs, every unit, outputs, prediction) and the "
                 "number of cases; the data has no target column, so there is no loss or accuracy.")

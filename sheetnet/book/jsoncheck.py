@@ -192,15 +192,3 @@ def _kind(value: Any) -> str:
 
 def _range_text(low: int, high: int | None) -> str:
     return f"at least {low:,}" if high is None else f"{low:,}..{high:,}"
-
-
-class RepeatedKey(Exception):
-    """A JSON object names one key twice (first-wins and last-wins readers would see different data)."""
-
-
-def without_repeated_keys(pairs: list[tuple[str, object]]) -> dict:
-    out = dict(pairs)
-    if len(out) != len(pairs):
-        seen: set[str] = set()
-        raise RepeatedKey(next(key for key, _ in pairs if key in seen or seen.add(key)))
-    return out

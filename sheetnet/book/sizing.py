@@ -4,8 +4,8 @@ cells by default.
 A workbook of every case and every step of a long run would hold millions of formulas, more than
 a spreadsheet application can use. Without size flags, ``build`` therefore chooses:
 
-* the Scoring sheet holds every case when they take at most half the cap, else a stated sample
-  (the training record's cases, and evenly spaced others);
+* the Scoring sheet holds every case when they take at most half the cap (all of it when there is
+  no training record), else a stated sample (the training record's cases, and evenly spaced others);
 * the training record replays as many whole epochs, from the start, as the rest of the cap allows;
   when not even one epoch of every training row fits, it replays the first epoch on the first
   training rows that fit.
@@ -75,13 +75,14 @@ class Costs:
 def choose(costs: Costs, requested: Requested, record_possible: bool) -> Extent:
     """The extent of the workbook: the user's flags where given, the most that fits elsewhere."""
     wanted_epochs = 0 if not record_possible else requested.epochs
-    scoring = _scoring(costs, requested)
+    scoring = _scoring(costs, requested, shared=wanted_epochs != 0)
     room = costs.room - scoring * costs.per_case
     if wanted_epochs == 0:
         return _checked(costs, Extent(0, 0, scoring), requested)
     rows = min(costs.n_train, requested.rows) if requested.rows is not None else costs.n_train
     if wanted_epochs is not None:
-        return _checked(costs, Extent(min(wanted_epochs, costs.epochs), rows, scoring), requested)
+        return _checked(costs, Extent(min(wanted_epochs, costs.epochs), rows, scoring, _capped(costs, requested)),
+                        requested)
     per_epoch = costs.epoch(rows)
     epochs = min(costs.epochs, room // per_epoch) if per_epoch else costs.epochs
     if epochs >= 1:
@@ -93,12 +94,27 @@ def choose(costs: Costs, requested: Requested, record_possible: bool) -> Extent:
     return _checked(costs, Extent(1, max(int(rows), 0), scoring), requested)
 
 
-def _scoring(costs: Costs, requested: Requested) -> int:
+def _scoring(costs: Costs, requested: Requested, shared: bool) -> int:
+    """Cases on the Scoring sheet: as asked, else all that fit in half the room (the whole room when
+    there is no training record to share it with)."""
     if requested.scoring_rows is not None:
         return min(costs.n_cases, requested.scoring_rows)
-    if costs.n_cases * costs.per_case <= costs.room // 2:
+    room = costs.room // 2 if shared else costs.room
+    if costs.n_cases * costs.per_case <= room:
         return costs.n_cases
-    return max(1, (costs.room // 2) // costs.per_case)
+    return max(1, room // costs.per_case)
+
+
+def _capped(costs: Costs, requested: Requested) -> tuple[str, ...]:
+    """Notes for size flags larger than the run itself."""
+    notes = []
+    if requested.epochs is not None and requested.epochs > costs.epochs:
+        notes.append(f"--trace-epochs {requested.epochs:,} is more than the run's {costs.epochs:,} epochs: the "
+                     "record replays all of them")
+    if requested.rows is not None and requested.rows > costs.n_train:
+        notes.append(f"--trace-rows {requested.rows:,} is more than the {costs.n_train:,} training rows: the record "
+                     "uses all of them")
+    return tuple(notes)
 
 
 def _checked(costs: Costs, extent: Extent, requested: Requested) -> Extent:
@@ -106,16 +122,18 @@ def _checked(costs: Costs, extent: Extent, requested: Requested) -> Extent:
     scoring = extent.scoring
     total = costs.cells(extent.epochs, extent.rows, scoring)
     if total <= costs.cap and (extent.epochs == 0 or extent.rows >= 1):
-        return Extent(extent.epochs, extent.rows, None if scoring == costs.n_cases else scoring)
+        return Extent(extent.epochs, extent.rows, None if scoring == costs.n_cases else scoring, extent.notes)
     rows = max(extent.rows, 1) if extent.epochs else 0
     needed = costs.cells(extent.epochs, rows, scoring)
     if requested.scoring_rows is None and scoring < costs.n_cases:  # a larger cap also widens the sample
         needed = max(needed, costs.fixed + 2 * (costs.cells(extent.epochs, rows, 0) - costs.fixed))
     advice = [*_advice(costs, Extent(extent.epochs, rows, scoring)), f"--max-cells {needed + needed // 10:,}"]
+    record = costs.cells(extent.epochs, rows, 0) - costs.fixed
     raise WorkbookFormatError(
-        f"the workbook would hold about {needed:,} formula cells ({scoring:,} cases x {costs.per_case} in Scoring, "
-        f"{extent.epochs:,} epochs x {rows:,} rows x {costs.per_record_row} in the training record), more than "
-        f"the cap of {costs.cap:,}: try {' or '.join(advice)}")
+        f"the workbook would hold about {costs.cells(extent.epochs, rows, scoring):,} formula cells "
+        f"({scoring * costs.per_case:,} in Scoring, "
+        f"{record:,} in the training record, up to {costs.fixed:,} on the other sheets), more than the cap of "
+        f"{costs.cap:,}: try {' or '.join(advice)}")
 
 
 def _advice(costs: Costs, wanted: Extent) -> list[str]:
@@ -154,19 +172,39 @@ def scoring_sample(n_cases: int, size: int | None, needed: np.ndarray) -> np.nda
     return np.array(sorted(chosen), dtype=int)
 
 
-def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int,
-                    requested: Requested = Requested()) -> list[str]:
+def _plural(count: int, word: str) -> str:
+    return f"{count:,} {word}" + ("" if count == 1 else "s")
+
+
+def record_words(record, n_train: int, total_epochs: int) -> str:
+    """What the training record replays, in words: whole epochs from the start, or the run's first steps."""
+    epochs = record.epochs[-1]
+    cases = sum(len(step) for step in record.steps)
+    span = "epoch 1" if epochs == 1 else f"epochs 1-{epochs}"
+    if cases == epochs * n_train:
+        return f"{span} of {total_epochs:,} on all {_plural(n_train, 'training row')}"
+    return (f"the run's first {_plural(len(record.steps), 'step')} ({_plural(cases, 'case')}, "
+            f"{'within epoch 1' if epochs == 1 else f'into epoch {epochs}'} of {total_epochs:,}; "
+            f"{_plural(n_train, 'training row')})")
+
+
+def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int, requested: Requested = Requested(),
+                    replayed: str = "", metrics_in_guide: bool = False) -> list[str]:
     """One line each for what was left out (and whether the flags or the cap chose it), and how to
-    record more."""
-    lines = []
+    record more; ``replayed``: the record in words (see :func:`record_words`)."""
+    lines = list(extent.notes)
     if extent.epochs and (extent.epochs < costs.epochs or extent.rows < costs.n_train):
-        rows = "all" if extent.rows >= costs.n_train else f"the first {extent.rows:,} of {costs.n_train:,}"
         asked = requested.epochs is not None and (requested.rows is not None or extent.rows >= costs.n_train)
         why = "as the flags asked" if asked else f"to fit {costs.cap:,} formula cells"
-        lines.append(f"the training record replays epochs 1-{extent.epochs} of {costs.epochs} on {rows} training "
-                     f"rows ({why}); record more with --trace-epochs / --trace-rows and --max-cells")
+        lines.append(f"the training record replays {replayed} ({why}); the Parameters hold the end of the full run; "
+                     "record more with --trace-epochs / --trace-rows and --max-cells")
     if sample < all_cases:
-        lines.append(f"the Scoring sheet holds {sample:,} of the {all_cases:,} cases (the record's cases and evenly "
-                     "spaced others, numbered by their row in the data file); its summary is over those; metrics "
-                     "over every case are in the Guide; set --scoring-rows and --max-cells for more")
+        cases = "the record's cases and evenly spaced others" if extent.epochs else "evenly spaced cases"
+        lines.append(f"the Scoring sheet holds a sample: {sample:,} of the {all_cases:,} cases ({cases}, numbered "
+                     "by their row in the data file); its summary is over those"
+                     + ("; metrics over every case are in the Guide" if metrics_in_guide else "")
+                     + "; set --scoring-rows and --max-cells for more")
+    if requested.scoring_rows is not None and sample > requested.scoring_rows:
+        lines.append(f"--scoring-rows {requested.scoring_rows:,} is fewer than the {sample:,} cases the Scoring "
+                     "sheet holds: it always holds the cases the training record uses")
     return lines

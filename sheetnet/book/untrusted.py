@@ -28,11 +28,12 @@ from typing import Any
 
 from sheetnet.book import layout as L
 from sheetnet.book.describe import FORMAT, LAYOUT_TITLE, SIGNATURE_ALGORITHM, VERSION
-from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, RepeatedKey, nesting_depth, without_repeated_keys
+from sheetnet.book.jsoncheck import MAX_DEPTH, Checker, Problem, nesting_depth
 from sheetnet.book.layout import LAYOUT, BookLayout, SheetTable, build_layout
 from sheetnet.book.schema import read_original_inputs, read_spec
 from sheetnet.book.spec import BookInputs, BookSpec
 from sheetnet.errors import DescriptionError, WorkbookFormatError
+from sheetnet.strictjson import RepeatedKey, without_repeated_keys
 from sheetnet.xlsx.addresses import MAX_COLS, MAX_ROWS, Block, Cell, a1, column_letters, parse_range
 from sheetnet.xlsx.cells import Workbook
 from sheetnet.xlsx.reader import read_workbook

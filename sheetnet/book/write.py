@@ -168,7 +168,7 @@ def write_entries(sheet: _Sheet, entries: Iterable[Entry], formats: dict, ordere
 
 def _guide(book, formats, layout: BookLayout, names: dict, digests: CellDigests | None) -> None:
     sheet = book.add_worksheet(L.GUIDE, worksheet_class=_Sheet)
-    sheet.set_column(0, 0, 30)
+    sheet.set_column(0, 0, 46)
     sheet.set_column(1, 1, 100)
     sheet.fit_to_pages(1, 0)
     wrapped = {role: book.add_format({**STYLE[role], "text_wrap": True, "valign": "top"}) for role in ("text", "label")}

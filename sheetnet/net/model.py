@@ -19,6 +19,7 @@ from sheetnet.errors import ModelFileError
 from sheetnet.files import write_text_atomic
 from sheetnet.net.activations import Activation, check_pair
 from sheetnet.onnxio.graph_out import model_to_onnx  # imports no net module: no cycle
+from sheetnet.strictjson import RepeatedKey, without_repeated_keys
 
 FORMAT = "sheetnet-model"
 VERSION = 1
@@ -136,9 +137,11 @@ def load_model(path: str | Path) -> Model:
     except (OSError, UnicodeDecodeError) as exc:
         raise ModelFileError(f"{path}: cannot read model file ({exc})") from None
     try:
-        data = json.loads(text, parse_constant=_refuse_constant)
+        data = json.loads(text, parse_constant=_refuse_constant, object_pairs_hook=without_repeated_keys)
     except json.JSONDecodeError as exc:
         raise ModelFileError(f"{path}: not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
+    except RepeatedKey as exc:
+        raise ModelFileError(f"{path}: the key {str(exc)!r} appears twice in one JSON object") from None
     except ValueError as exc:
         raise ModelFileError(f"{path}: {exc}") from None
     try:

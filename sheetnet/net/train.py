@@ -71,20 +71,32 @@ def stored_settings(model: Model, source: str = "the model file") -> TrainSettin
     raw = model.training.get("settings") if isinstance(model.training, dict) else None
     if raw is None:
         return None
+    if not isinstance(raw, dict):
+        raise ModelFileError(f"{source}: training.settings: expected an object")
+    values = {}
+    for key, read in _SETTING_READERS.items():
+        if key not in raw and key not in _OPTIONAL_SETTINGS:
+            raise ModelFileError(f"{source}: training.settings.{key} is missing")
+        try:
+            values[key] = read(raw.get(key, _OPTIONAL_SETTINGS.get(key)))
+        except (TypeError, ValueError) as exc:
+            raise ModelFileError(f"{source}: training.settings.{key}: {exc}") from None
+    settings = TrainSettings(**values)
     try:
-        if not isinstance(raw, dict):
-            raise TypeError("not an object")
-        batch = raw.get("batch_size", 1)
-        settings = TrainSettings(learning_rate=float(raw["learning_rate"]), epochs=_whole(raw["epochs"]),
-                                 batch_size=None if batch == "full" else _whole(batch),
-                                 shuffle=_truth(raw["shuffle"]), seed=_whole(raw["seed"]),
-                                 momentum=float(raw.get("momentum", 0.0)), l2=float(raw.get("l2", 0.0)))
         settings.validate()
-    except KeyError as exc:
-        raise ModelFileError(f"{source}: training.settings.{exc.args[0]} is missing") from None
-    except (TypeError, ValueError, UsageError) as exc:
+    except UsageError as exc:
         raise ModelFileError(f"{source}: training.settings: {exc}") from None
     return settings
+
+
+def _number(value) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise ValueError(f"expected a number, got {value!r}")
+    return float(value)
+
+
+def _batch(value) -> int | None:
+    return None if value == "full" else _whole(value)
 
 
 def _whole(value) -> int:
@@ -97,6 +109,13 @@ def _truth(value) -> bool:
     if not isinstance(value, bool):
         raise ValueError(f"expected true or false, got {value!r}")
     return value
+
+
+#: How each stored setting is read (a wrong type is refused with its JSON path); the optional ones'
+#: defaults are those of files written before they were stored.
+_SETTING_READERS = {"learning_rate": _number, "epochs": _whole, "batch_size": _batch, "shuffle": _truth,
+                    "seed": _whole, "momentum": _number, "l2": _number}
+_OPTIONAL_SETTINGS = {"batch_size": 1, "momentum": 0.0, "l2": 0.0}
 
 
 @dataclass(frozen=True)

@@ -33,8 +33,10 @@ def _criterion(label: str) -> str:
 
 def scoring_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     spec, table = layout.spec, layout.scoring
-    yield Entry(0, 0, "title", "Batch scoring: one formula row per case; the summary above is over the cases "
-                               "on this sheet")
+    title = "Batch scoring of a sample of the data (case = its row in the data file): the summary above is over " \
+        "the sample only" if spec.case_rows else "Batch scoring: one formula row per case; the summary above is " \
+        "over the cases on this sheet"
+    yield Entry(0, 0, "title", title)
     yield from summary_entries(layout, numbers)
     for column in table.columns:
         yield Entry(table.header_row, table.col(column.key), "header", column.header,
@@ -101,7 +103,7 @@ def summary_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
                     float(np.mean(scored.loss)))
     sets = np.array(spec.sets)
     for name, cell in summary.accuracy.items():
-        yield Entry(cell.row, 0, "label", f"accuracy ({name} cases)")
+        yield Entry(cell.row, 0, "label", f"accuracy ({name} cases{' in the sample' if spec.case_rows else ''})")
         if name == "all":
             yield Entry(cell.row, 1, "formula", formula_text.average(col(("correct",))), float(np.mean(scored.correct)),
                         style="ratio")
