@@ -112,7 +112,7 @@ def test_problems_name_what_disagrees_with_what(book, tmp_path):
 
     report = audit(alter_description(book, tmp_path / "b.xlsx", moved))
     note = report.of("description")[0].note
-    assert report.of("description")[0].cell == "names.W_1" and "Parameters!B12" in note
+    assert report.of("description")[0].cell == "names.W_1" and "Parameters!B16" in note
 
 
 def test_a_description_claiming_more_rows_than_the_sheet_holds_is_refused(book, tmp_path):

@@ -197,7 +197,7 @@ def test_input_changed_without_recalculation_is_stale_not_a_mismatch(tmp_path, r
         for item in src.infolist():
             data = src.read(item.filename)
             if item.filename == "xl/worksheets/sheet2.xml":  # the Parameters sheet: first weight of W_1
-                data, done = re.subn(rb'(<c r="B12" s="\d+"><v>)[^<]*(</v>)', rb"\g<1>0.75\g<2>", data)
+                data, done = re.subn(rb'(<c r="B16" s="\d+"><v>)[^<]*(</v>)', rb"\g<1>0.75\g<2>", data)
                 assert done == 1
             dst.writestr(item, data)
     code, out, data = _verify(run_cli, stale)

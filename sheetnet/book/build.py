@@ -242,6 +242,19 @@ def _subset(table: dataio.DataTable, cases: np.ndarray) -> dataio.DataTable:
     return replace(table, rows=tuple(table.rows[i] for i in cases), lines=tuple(table.lines[i] for i in cases))
 
 
+def _record_note(record, extent: Extent, run: TrainSettings, n_train: int, words: str, continues: bool) -> str:
+    """The banner of a record that is not the whole run behind the Parameters (empty when it is)."""
+    if record is None:
+        return ""
+    if continues:
+        return (f"The training record continues training from the model's weights (the Parameters sheet): {words}; "
+                "record_gap is how far those steps moved them.")
+    if extent.epochs >= run.epochs and extent.rows >= n_train:
+        return ""
+    return (f"The training record replays {words}, not the whole run: the Parameters sheet holds the end of the "
+            "full run, so record_gap is not 0.")
+
+
 def _renumbered(record: RecordSpec | None, cases: np.ndarray) -> RecordSpec | None:
     """The record's steps with case numbers of the Scoring sample."""
     if record is None:
@@ -252,7 +265,8 @@ def _renumbered(record: RecordSpec | None, cases: np.ndarray) -> RecordSpec | No
 
 def plan_workbook(model: Model, table: dataio.DataTable, settings: TrainSettings | None, train_rows: np.ndarray,
                   initial: tuple[Layer, ...], requested: Requested, max_cells: int,
-                  metrics: list[tuple[str, Metrics]], sets: list[str], extra: list[tuple[str, str]]) -> Plan:
+                  metrics: list[tuple[str, Metrics]], sets: list[str], extra: list[tuple[str, str]],
+                  continues: bool = False) -> Plan:
     """The spec and inputs of a workbook of ``model`` and ``table``, sized to fit ``max_cells``: a record
     of the run from ``initial`` on ``train_rows`` (when targets and ``settings`` allow one)."""
     kind = target_kind(model, table)
@@ -269,6 +283,7 @@ def plan_workbook(model: Model, table: dataio.DataTable, settings: TrainSettings
     notes = describe_extent(extent, size, len(cases), len(table.rows), requested, words, bool(metrics))
     lines = provenance(model, table, run if record else None, extent, metrics, extra, words)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
+    spec = replace(spec, record_note=_record_note(record, extent, run, len(train_rows), words, continues))
     if len(cases) < len(table.rows):
         spec = replace(spec, case_rows=tuple(int(c) + 1 for c in cases))
     return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial, spec.record), tuple(notes))
@@ -317,5 +332,5 @@ def from_model(model: Model, table: dataio.DataTable | None, settings: TrainSett
         metrics.append(("the model", evaluate(model, dataio.feature_matrix(table, model.inputs), targets)))
     rows = np.arange(len(table.rows))
     plan = plan_workbook(model, table, settings, rows, model.layers, requested, max_cells, metrics,
-                         ["training" if kind != "none" else ""] * len(table.rows), list(extra))
+                         ["training" if kind != "none" else ""] * len(table.rows), list(extra), continues=True)
     return replace(plan, notes=tuple(notes) + plan.notes)

@@ -48,6 +48,8 @@ def spec_to_dict(spec: BookSpec) -> dict[str, Any]:
         record = {"steps": [list(s) for s in spec.record.steps], "epochs": list(spec.record.epochs),
                   "momentum": spec.record.momentum, "l2": spec.record.l2}
     sampled = {"case_rows": list(spec.case_rows)} if spec.case_rows else {}
+    if spec.record_note:
+        sampled["record_note"] = spec.record_note
     return sampled | {
         "inputs": list(spec.inputs), "outputs": list(spec.outputs), "units": list(spec.units),
         "activations": [a.to_dict() for a in spec.activations], "loss": spec.loss, "task": spec.task,

@@ -39,6 +39,16 @@ class Numbers:
     calculator: Scored
     record: TrainResult | None
 
+    @property
+    def record_gap(self) -> float:
+        """The largest |parameter after the record's last step - parameter in use| (0 without a record)."""
+        if self.record is None or not self.record.trace:
+            return 0.0
+        after = self.record.trace[-1].after
+        return float(max(np.max(np.abs(np.concatenate([a.weights.ravel(), a.bias.ravel()])
+                                       - np.concatenate([b.weights.ravel(), b.bias.ravel()])))
+                         for a, b in zip(after, self.inputs.layers, strict=True)))
+
 
 def _label_matches(cell: float | str, label: str) -> bool:
     """The spreadsheet's ``=`` on a label: numbers by value, text without regard to case."""

@@ -9,7 +9,7 @@ softmax, same probability clip) so both agree to rounding.
 
 from __future__ import annotations
 
-from sheetnet.net.activations import PROBABILITY_CLIP, Activation
+from sheetnet.net.activations import Activation
 
 
 def number(value: float) -> str:
@@ -33,7 +33,10 @@ def label_literal(label: str) -> str:
         return text_literal(label)
 
 
-CLIP = number(PROBABILITY_CLIP)
+#: The probability clip and the target cut are named cells on the Parameters sheet (PROBABILITY_CLIP and
+#: TARGET_CUT in net.activations hold their values): no formula carries them as literals.
+CLIP = "probability_clip"
+CUT = "target_cut"
 
 
 def reference(source: str) -> str:
@@ -139,7 +142,7 @@ def hidden_delta(act: Activation, z: str, a: str, terms: list[tuple[str, str]]) 
 
 
 def _squared_loss(act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
-    return f"=0.5*SUMXMY2({t_range},{y_range})"
+    return f"=SUMXMY2({t_range},{y_range})/2"
 
 
 def _cross_entropy_loss(act: Activation, ys: list[str], ts: list[str], y_range: str, t_range: str) -> str:
@@ -160,21 +163,29 @@ def loss(kind: str, act: Activation, ys: list[str], ts: list[str], y_range: str,
     return LOSS_TEXT[kind](act, ys, ts, y_range, t_range)
 
 
-def correct(task: str, ys: list[str], ts: list[str], y_range: str, t_range: str, threshold: str = "0.5") -> str:
+def record_gap(pairs: list[tuple[str, str]]) -> str:
+    """The largest |a - b| over pairs of equally shaped ranges (SUMPRODUCT evaluates the array in every
+    application, so no array entry is needed)."""
+    return "=MAX(" + ",".join(f"SUMPRODUCT(MAX(ABS({a}-{b})))" for a, b in pairs) + ")"
+
+
+def correct(task: str, ys: list[str], ts: list[str], y_range: str, t_range: str, threshold: str = CUT) -> str:
     """1 when the case is classified right: arg-max match (multiclass) or every output on the
     same side of the threshold as its target (binary, multilabel)."""
     if task == "multiclass":
         return f"=IF(MATCH(MAX({y_range}),{y_range},0)=MATCH(MAX({t_range}),{t_range},0),1,0)"
-    sides = [f"IF(({y}>={threshold})=({t}>=0.5),1,0)" for y, t in zip(ys, ts, strict=True)]
+    sides = [f"IF(({y}>={threshold})=({t}>={CUT}),1,0)" for y, t in zip(ys, ts, strict=True)]
     return "=" + "*".join(sides)
 
 
-def encode_label(label_cell: str, label: str) -> str:
-    return f"=IF({label_cell}={label_literal(label)},1,0)"
+def encode_label(label_cell: str, index: int) -> str:
+    """1 when the case's label is the ``index``-th class label (1-based, as INDEX counts), else 0."""
+    return f"=IF({label_cell}=INDEX(class_labels,{index}),1,0)"
 
 
-def predicted_binary(p: str, threshold: str, negative: str, positive: str) -> str:
-    return f"=IF({p}>={threshold},{label_literal(positive)},{label_literal(negative)})"
+def predicted_binary(p: str, threshold: str) -> str:
+    """The positive class label (the second) when the probability reaches the threshold, else the first."""
+    return f"=IF({p}>={threshold},INDEX(class_labels,2),INDEX(class_labels,1))"
 
 
 def predicted_multiclass(y_range: str, labels: str) -> str:

@@ -36,6 +36,8 @@ def _name_meaning(name: str) -> str:
         "learning_rate": "learning rate of every update in the training record",
         "momentum": "momentum of the updates in the training record",
         "l2_penalty": "L2 penalty added to every weight gradient in the training record",
+        "record_gap": "largest |parameter after the record's last step - parameter in use|: 0 (to rounding) when "
+                      "the record replays the whole run that produced the Parameters",
     }
     return fixed.get(name) or meanings.get(kind, "")
 
@@ -78,7 +80,9 @@ def _record_lines(layout: BookLayout) -> list[tuple[str, str, str]]:
     if layout.record is None:
         return []
     momentum = " With momentum, a velocity column per parameter is updated first." if layout.momentum else ""
+    banner = [("title", "Training record", layout.spec.record_note)] if layout.spec.record_note else []
     return [
+        *banner,
         ("title", "Reading one row of the training record", ""),
         ("text", "", "Left to right: step, epoch and case; the case's scaled inputs and targets (linked from "
                      "Scoring); every unit's weighted sum z and activation a, computed with the parameters in force "

@@ -118,6 +118,8 @@ class BookLayout:
     class_labels: Block | None
     parameters: ParamBlocks
     threshold: Cell | None
+    probability_clip: Cell | None
+    target_cut: Cell | None
     calculator: CalculatorLayout
     scoring: SheetTable
     summary: SummaryLayout
@@ -127,6 +129,7 @@ class BookLayout:
     initial: ParamBlocks | None
     final: ParamBlocks | None
     record: SheetTable | None
+    record_gap: Cell | None
     step_rows: tuple[tuple[int, int], ...]
     epochs: SheetTable | None
 
@@ -142,8 +145,9 @@ class BookLayout:
         names: dict[str, Block] = {"scale_offset": self.offset, "scale_divisor": self.divisor}
         if self.class_labels is not None:
             names["class_labels"] = self.class_labels
-        if self.threshold is not None:
-            names["threshold"] = _one(self.threshold)
+        for name in ("threshold", "probability_clip", "target_cut"):
+            if getattr(self, name) is not None:
+                names[name] = _one(getattr(self, name))
         for prefix, blocks in (("", self.parameters), ("init_", self.initial), ("final_", self.final)):
             if blocks is None:
                 continue
@@ -151,7 +155,7 @@ class BookLayout:
                 names[f"{prefix}W_{k + 1}"] = w
                 names[f"{prefix}b_{k + 1}"] = b
         for name, cell in (("learning_rate", self.learning_rate), ("momentum", self.momentum),
-                           ("l2_penalty", self.l2)):
+                           ("l2_penalty", self.l2), ("record_gap", self.record_gap)):
             if cell is not None:
                 names[name] = _one(cell)
         return names
@@ -174,10 +178,9 @@ def param_blocks(spec: BookSpec, sheet: str, top: int) -> tuple[ParamBlocks, int
     return ParamBlocks(tuple(weights), tuple(bias), tuple(titles)), row
 
 
-def _calculator(spec: BookSpec) -> tuple[CalculatorLayout, Cell | None]:
+def _calculator(spec: BookSpec) -> CalculatorLayout:
     n = len(spec.inputs)
     raw, scaled = Block(CALCULATOR, 3, 1, 1, n), Block(CALCULATOR, 4, 1, 1, n)
-    threshold = Cell(CALCULATOR, 6, 1) if spec.is_classification else None
     z, a, titles = [], [], []
     row = 8
     smax = ssum = None
@@ -194,8 +197,7 @@ def _calculator(spec: BookSpec) -> tuple[CalculatorLayout, Cell | None]:
         predicted = Block(CALCULATOR, row, 1, 1, 1)
     elif spec.task == "multilabel":
         predicted = Block(CALCULATOR, row, 1, 1, len(spec.outputs))
-    layout = CalculatorLayout(raw, scaled, tuple(z), tuple(a), smax, ssum, predicted, tuple(titles))
-    return layout, threshold
+    return CalculatorLayout(raw, scaled, tuple(z), tuple(a), smax, ssum, predicted, tuple(titles))
 
 
 def network_columns(spec: BookSpec) -> list[Column]:
@@ -310,17 +312,21 @@ def build_layout(spec: BookSpec) -> BookLayout:
     n = len(spec.inputs)
     offset, divisor = Block(PARAMETERS, 4, 1, 1, n), Block(PARAMETERS, 5, 1, 1, n)
     class_labels = Block(PARAMETERS, 7, 1, 1, len(spec.classes)) if spec.classes else None
-    parameters, _ = param_blocks(spec, PARAMETERS, 9)
-    calculator, threshold = _calculator(spec)
+    threshold = Cell(PARAMETERS, 9, 1) if spec.is_classification else None
+    probability_clip = Cell(PARAMETERS, 10, 1) if spec.loss == "cross-entropy" else None
+    target_cut = Cell(PARAMETERS, 11, 1) if spec.task in ("binary", "multilabel") else None
+    parameters, _ = param_blocks(spec, PARAMETERS, 13)
+    calculator = _calculator(spec)
     has_holdout = "holdout" in spec.sets
     summary, table_top = _summary(spec, has_holdout)
     scoring = SheetTable(SCORING, table_top, spec.n_cases, tuple(_scoring_columns(spec)))
-    record = initial = final = epochs = lr = momentum = l2 = None
+    record = initial = final = epochs = lr = momentum = l2 = record_gap = None
     step_rows: tuple[tuple[int, int], ...] = ()
     if spec.record is not None:
         lr = Cell(SETUP, 2, 1)
         momentum = Cell(SETUP, 3, 1) if spec.record.momentum else None
         l2 = Cell(SETUP, 4, 1) if spec.record.l2 else None
+        record_gap = Cell(SETUP, 5, 1)
         initial, row = param_blocks(spec, SETUP, 7)
         final, _ = param_blocks(spec, SETUP, row + 2)
         record = SheetTable(RECORD, 2, spec.record.n_rows, tuple(_record_columns(spec)))
@@ -330,6 +336,8 @@ def build_layout(spec: BookSpec) -> BookLayout:
             epoch_cols.append(Column(("accuracy",), "accuracy", "formula"))
         epochs = SheetTable(EPOCHS, 2, spec.record.n_epochs, tuple(epoch_cols))
     return BookLayout(spec=spec, offset=offset, divisor=divisor, class_labels=class_labels, parameters=parameters,
-                      threshold=threshold, calculator=calculator, scoring=scoring, summary=summary,
+                      threshold=threshold, probability_clip=probability_clip, target_cut=target_cut,
+                      calculator=calculator, scoring=scoring, summary=summary,
                       learning_rate=lr, momentum=momentum, l2=l2, initial=initial, final=final, record=record,
+                      record_gap=record_gap,
                       step_rows=step_rows, epochs=epochs)

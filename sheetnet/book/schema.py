@@ -32,7 +32,7 @@ _INPUT_KEYS = ("layers", "offset", "divisor", "data", "threshold", "calculator",
 def read_spec(data: Any) -> tuple[BookSpec | None, list[Problem]]:
     """The spec section, or None and why not."""
     check = Checker("spec")
-    raw = check.obj(data, "spec", _SPEC_KEYS, ("case_rows",))
+    raw = check.obj(data, "spec", _SPEC_KEYS, ("case_rows", "record_note"))
     if raw is None:
         return None, check.problems
     inputs = check.texts(raw["inputs"], "spec.inputs", 1, MAX_COLS - 2, unique=True, max_length=MAX_NAME)
@@ -50,13 +50,15 @@ def read_spec(data: Any) -> tuple[BookSpec | None, list[Problem]]:
     provenance = _provenance(check, raw["provenance"])
     record = None if raw["record"] is None else _record(check, raw["record"], n_cases)
     case_rows = _case_rows(check, raw.get("case_rows", []), n_cases)
+    record_note = check.text(raw.get("record_note", ""), "spec.record_note", max_length=MAX_NOTE)
     parts = (inputs, units, outputs, activations, loss, task, classes, target, kind, n_cases, sets, scaling, provenance,
-             case_rows)
+             case_rows, record_note)
     if check.problems or any(p is None for p in parts):
         return None, check.problems
     spec = BookSpec(inputs=inputs, outputs=outputs, units=units, activations=activations, loss=loss, task=task,
                     classes=classes, target=target, target_kind=kind, n_cases=n_cases, sets=sets, record=record,
-                    scaling_method=scaling, provenance=provenance, case_rows=case_rows)
+                    scaling_method=scaling, provenance=provenance, case_rows=case_rows,
+                    record_note=record_note)
     _consistent(check, spec)
     _fits_the_sheets(check, spec)
     return (None if check.problems else spec), check.problems

@@ -69,6 +69,7 @@ class BookSpec:
     scaling_method: str = "none"
     provenance: tuple[tuple[str, str], ...] = ()
     case_rows: tuple[int, ...] = ()
+    record_note: str = ""  # what the record replays when it is not the whole run (a banner on Training setup)
 
     def case_number(self, n: int) -> int:
         """The number a reader sees for the n-th case: its row in the data file."""

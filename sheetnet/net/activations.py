@@ -21,6 +21,9 @@ TRAINABLE = ("sigmoid", "tanh", "relu", "identity", "softmax")
 #: 2**-48 of 1, and then both engines must land on the same clipped value.
 PROBABILITY_CLIP = 1e-12
 
+#: A target at or above this counts as the positive class (0/1 targets, or probabilities given as targets).
+TARGET_CUT = 0.5
+
 
 @dataclass(frozen=True)
 class Activation:

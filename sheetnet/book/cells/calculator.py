@@ -38,9 +38,6 @@ def calculator_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         yield Entry(3, calc.raw.left + i, "input", float(inputs.calculator[i]))
     for i in range(len(spec.inputs)):
         yield scaled_entry(layout, i, calc.raw.cell(0, i), calc.scaled.cell(0, i), numbers.calculator.x[0, i])
-    if layout.threshold is not None:
-        yield Entry(layout.threshold.row, 0, "label", "decision threshold")
-        yield Entry(layout.threshold.row, layout.threshold.col, "input", float(inputs.threshold))
     yield from _calculator_network(layout, numbers)
     yield from _calculator_prediction(layout, numbers)
 
@@ -81,7 +78,7 @@ def predicted_entries(spec: BookSpec, y: np.ndarray, y_refs: list[str], y_range:
         negative, positive = spec.classes
         label = positive if y[0] >= threshold_value else negative
         yield Entry(cells[0].row, cells[0].col, "formula",
-                    formula_text.predicted_binary(y_refs[0], threshold, negative, positive), label_value(label))
+                    formula_text.predicted_binary(y_refs[0], threshold), label_value(label))
     elif spec.task == "multiclass":
         yield Entry(cells[0].row, cells[0].col, "formula", formula_text.predicted_multiclass(y_range, "class_labels"),
                     label_value(spec.classes[int(np.argmax(y))]))

@@ -14,6 +14,7 @@ from sheetnet.book.layout import (
     ParamBlocks,
 )
 from sheetnet.book.spec import BookSpec
+from sheetnet.net.activations import PROBABILITY_CLIP, TARGET_CUT
 from sheetnet.xlsx.addresses import Cell, ref
 
 
@@ -56,7 +57,33 @@ def parameter_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         yield Entry(7, 0, "label", "class labels")
         for k, label in enumerate(spec.classes):
             yield Entry(7, 1 + k, "label", label_value(label))
+    yield from _setting_entries(layout, inputs.threshold)
     yield from _matrix_entries(spec, layout.parameters, inputs.layers, "Layer", "input")
+
+
+def _setting_entries(layout: BookLayout, threshold: float) -> Iterator[Entry]:
+    """The model's settings that formulas read by name: the decision threshold (editable) and two
+    constants of the loss and of the accuracy (written once here, never inside a formula)."""
+    for cell, label, value, role in (
+            (layout.threshold, "decision threshold", threshold, "input"),
+            (layout.probability_clip, "probability clip (inside LN)", PROBABILITY_CLIP, "label"),
+            (layout.target_cut, "target cut (a target at or above it counts as 1)", TARGET_CUT, "label")):
+        if cell is not None:
+            yield Entry(cell.row, 0, "label", label)
+            yield Entry(cell.row, cell.col, role, float(value))
+
+
+def _gap_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
+    """record_gap: how far the record's end is from the parameters in use, and, when the record is not
+    the whole run, a banner saying why it is not 0."""
+    spec, cell = layout.spec, layout.record_gap
+    pairs = [(f"final_{kind}_{k + 1}", f"{kind}_{k + 1}") for k in range(spec.n_layers) for kind in ("W", "b")]
+    yield Entry(cell.row, 0, "label", "record gap")
+    yield Entry(cell.row, cell.col, "formula", formula_text.record_gap(pairs), numbers.record_gap,
+                note="Largest |parameter after the record's last step - parameter in use (Parameters sheet)|: 0, up "
+                     "to rounding, when the record replays the whole run that produced the Parameters.")
+    if spec.record_note:
+        yield Entry(1, 0, "title", spec.record_note)
 
 
 def setup_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
@@ -69,6 +96,7 @@ def setup_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         if cell is not None:
             yield Entry(cell.row, 0, "label", label)
             yield Entry(cell.row, cell.col, "input", float(value))
+    yield from _gap_entries(layout, numbers)
     yield Entry(layout.initial.titles[0].row - 1, 0, "text", "Initial parameters (where the training record starts)")
     yield from _matrix_entries(spec, layout.initial, inputs.initial, "Initial layer", "input")
     final_layers = numbers.record.trace[-1].after if numbers.record.trace else inputs.initial

@@ -61,7 +61,8 @@ def _scoring_row(layout: BookLayout, numbers: Numbers, n: int, refs: RowRefs) ->
     if spec.encodes_targets:
         for k, label in enumerate(spec.positive_labels):
             yield Entry(row, table.col(("t", k)), "formula",
-                        formula_text.encode_label(ref(cell(("target", 0)), here), label), scored.t[n, k])
+                        formula_text.encode_label(ref(cell(("target", 0)), here), spec.classes.index(label) + 1),
+                        scored.t[n, k])
     for i in range(len(spec.inputs)):
         yield scaled_entry(layout, i, cell(("raw", i)), cell(("x", i)), scored.x[n, i])
     yield from network_entries(spec, refs, cell, scored, n)
@@ -136,8 +137,8 @@ def _confusion_entries(layout: BookLayout, numbers: Numbers, col) -> Iterator[En
         yield Entry(block.top - 1, block.left + j, "header", label_value(label))
     for i, label in enumerate(spec.classes):
         yield Entry(block.top + i, 0, "label", label_value(label))
-        true_crit = _criterion(label) if spec.encodes_targets else (formula_text.text_literal(">=0.5") if i else
-                                                                     formula_text.text_literal("<0.5"))
+        cut = formula_text.text_literal(">=" if i else "<") + "&" + formula_text.CUT
+        true_crit = _criterion(label) if spec.encodes_targets else cut
         for j, predicted in enumerate(spec.classes):
             formula = formula_text.count_pairs(col(("target", 0)), true_crit, col(("pred",)), _criterion(predicted))
             yield Entry(block.top + i, block.left + j, "formula", formula, float(np.sum((truth == i) & (pred == j))),
