@@ -295,10 +295,10 @@ def extract_with_note(path, after_training: bool = False) -> tuple[Model, str]:
     return extract(path, after_training=after_training)
 
 
-def report_html(source, out, force: bool = False, data=None, inputs=None, classes=None) -> Path:
+def report_html(source, out, force: bool = False, data=None, inputs=None, classes=None, target=None) -> Path:
     """The HTML report of a model file or ONNX graph (``data``: a CSV whose points the plots show) or a
     workbook, like ``sheetnet report``."""
-    model = as_model(source, data, inputs, classes) if Path(source).suffix.lower() in MODEL_SUFFIXES else None
+    model = as_model(source, data, inputs, classes, target) if Path(source).suffix.lower() in MODEL_SUFFIXES else None
     return write_report(source, out, force=force, data=data, model=model)
 
 

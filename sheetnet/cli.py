@@ -58,7 +58,7 @@ def cmd_train(args: argparse.Namespace) -> int:
 def cmd_score(args: argparse.Namespace) -> int:
     check_output(args.out, args.force, inputs=[args.model, args.data], kind="scores file")
     table = api.as_table(args.data)
-    model = api.as_model(args.model, table, args.inputs, args.classes)
+    model = api.as_model(args.model, table, args.inputs, args.classes, args.target)
     frame = api.score(model, table, args.threshold, keep_other_columns=not args.drop_other_columns)
     write_atomic(args.out, lambda tmp: frame.to_csv(tmp, index=False, float_format="%.17g"), force=args.force)
     if args.threshold != 0.5 and model.task not in ("binary", "multilabel"):
@@ -237,7 +237,8 @@ def cmd_report(args: argparse.Namespace) -> int:
     if args.data is not None and args.source.suffix.lower() not in api.MODEL_SUFFIXES:
         raise UsageError("--data goes with a model file; a workbook's report plots the data it holds")
     check_output(args.out, args.force, inputs=[args.source, *([args.data] if args.data else [])], kind="HTML report")
-    api.report_html(args.source, args.out, force=args.force, data=args.data, inputs=args.inputs, classes=args.classes)
+    api.report_html(args.source, args.out, force=args.force, data=args.data, inputs=args.inputs, classes=args.classes,
+                    target=args.target)
     print(f"report written to {args.out}")
     return 0
 

@@ -278,17 +278,20 @@ def command_parser() -> argparse.ArgumentParser:
                           help="number type of the graph (float64 reproduces the workbook to 1e-12)")
     export_p.add_argument("--threshold", type=_fraction,
                           help="decision threshold of the graph's label (default: the workbook's, else 0.5)")
-    add_graph_flags(export_p)
+    add_graph_flags(export_p, data=False)
     export_p.add_argument("--force", action="store_true", help="overwrite an existing ONNX file")
     return parser
 
 
-def add_graph_flags(p: argparse.ArgumentParser, inputs: bool = True) -> None:
-    """Names an ONNX graph may not hold (a model file always does)."""
+def add_graph_flags(p: argparse.ArgumentParser, inputs: bool = True, data: bool = True) -> None:
+    """Names an ONNX graph may not hold (a model file always does); ``data``: the command reads a table."""
     if inputs:
         p.add_argument("--inputs", type=_columns,
-                       help="for an ONNX graph that names no features: its input columns in order (default: the "
-                            "data's numeric columns)")
+                       help="for an ONNX graph that names no features: its input columns in order (default: "
+                            + ("the data's numeric columns other than the target)" if data else "x1, x2, ...)"))
+    if inputs and data:
+        p.add_argument("--target", type=_columns,
+                       help="for an ONNX graph: the data's target column(s), left out of its inputs")
     p.add_argument("--classes", type=_columns,
                    help="for an ONNX graph that names no classes: the class labels in output order")
 

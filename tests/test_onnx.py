@@ -329,3 +329,80 @@ def test_a_graph_that_names_no_features_takes_the_datas_numeric_columns_or_asks(
     assert code == 2 and "--inputs" in err and not (tmp_path / "t.csv").exists()
     code, _, err = run_cli("score", tmp_path / "m.onnx", tmp_path / "d.csv", "-o", tmp_path / "u.csv")
     assert code == 2 and "--classes" in err
+
+
+def _small(nodes, outputs=("y",), initializers=(), width=3) -> onnx.ModelProto:
+    graph = helper.make_graph(nodes, "g", [helper.make_tensor_value_info("x", TensorProto.FLOAT, ["n", width])],
+                              [helper.make_tensor_value_info(o, TensorProto.FLOAT, ["n", None]) for o in outputs],
+                              list(initializers))
+    return helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)], ir_version=8)
+
+
+def _misread_if_accepted(kind: str) -> onnx.ModelProto:
+    """Graphs that would be misread if their extra node were skipped: each must be refused."""
+    w, b = _tensor("w", np.ones((3, 2))), _tensor("b", np.zeros(2))
+    dense = helper.make_node("MatMul", ["x", "w"], ["h"], name="dense")
+    if kind == "if":
+        then = helper.make_graph([helper.make_node("Neg", ["h"], ["r"], name="neg")], "then", [],
+                                 [helper.make_tensor_value_info("r", TensorProto.FLOAT, None)])
+        other = helper.make_graph([helper.make_node("Identity", ["h"], ["s"], name="same")], "else", [],
+                                  [helper.make_tensor_value_info("s", TensorProto.FLOAT, None)])
+        flag = numpy_helper.from_array(np.array(True), "flag")
+        return _small([dense, helper.make_node("If", ["flag"], ["y"], name="/If", then_branch=then,
+                                               else_branch=other)], initializers=[w, flag])
+    if kind == "second head":
+        return _small([dense, helper.make_node("Sigmoid", ["h"], ["y"], name="out")], outputs=("y", "h"),
+                      initializers=[w])
+    if kind == "weights of the wrong shape":
+        return _small([helper.make_node("Gemm", ["x", "w5", "b"], ["y"], name="/fc1/Gemm")],
+                      initializers=[_tensor("w5", np.ones((5, 4))), b])
+    shape = numpy_helper.from_array(np.array([1, -1], dtype=np.int64), "shape")
+    return _small([dense, helper.make_node("Reshape", ["h", "shape"], ["y"], name="/flat/Reshape")],
+                  initializers=[w, shape])
+
+
+@pytest.mark.parametrize("kind, says", [("if", "'/If' (If)"), ("second head", "output 'h' is not computed from"),
+                                        ("weights of the wrong shape", "'/fc1/Gemm' (Gemm)"),
+                                        ("reshape of the rows", "'/flat/Reshape' (Reshape)")])
+def test_graphs_that_would_be_misread_are_refused(kind, says, tmp_path, run_cli):
+    onnx.save(_misread_if_accepted(kind), tmp_path / "g.onnx")
+    (tmp_path / "d.csv").write_text("a,b,c\n1,2,3\n4,5,6\n")
+    for command in (["score", tmp_path / "g.onnx", tmp_path / "d.csv", "-o", tmp_path / "s.csv"],
+                    ["export", tmp_path / "g.onnx", "-o", tmp_path / "e.onnx"]):
+        code, _, err = run_cli(*command)
+        assert code == 2 and says in err and len(err.strip().splitlines()) == 1, (command[0], err)
+    assert not (tmp_path / "s.csv").exists() and not (tmp_path / "e.onnx").exists()
+
+
+def test_files_that_are_not_self_contained_graphs_are_refused(tmp_path, run_cli):
+    (tmp_path / "empty.onnx").write_bytes(b"")
+    code, _, err = run_cli("export", tmp_path / "empty.onnx", "-o", tmp_path / "e.onnx")
+    assert code == 2 and "empty.onnx: an empty file" in err
+    proto = _torch_shaped(np.ones((5, 4)), np.zeros(5), np.ones((3, 5)), np.zeros(3), softmax=True)
+    onnx.save(proto, tmp_path / "ext.onnx", save_as_external_data=True, all_tensors_to_one_file=True,
+              location="weights.bin", size_threshold=0)
+    code, _, err = run_cli("export", tmp_path / "ext.onnx", "--classes", "a,b,c", "-o", tmp_path / "e.onnx")
+    assert code == 2 and "external data" in err and not (tmp_path / "e.onnx").exists()
+
+
+def test_scikit_learns_dataframe_form_names_the_datas_columns(tmp_path, run_cli):
+    """skl2onnx given a DataFrame writes one input per column (names made identifier-safe) joined by
+    FeatureVectorizer: those names are the graph's features, matched to the data's columns."""
+    from skl2onnx import to_onnx
+    from sklearn.neural_network import MLPClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    frame = _frame("load_iris")
+    features = frame.drop(columns="species")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        mlp = make_pipeline(StandardScaler(), MLPClassifier((4,), max_iter=100, random_state=0)).fit(
+            features, frame.species)
+    onnx.save(to_onnx(mlp, features[:1]), tmp_path / "m.onnx")
+    frame.to_csv(tmp_path / "d.csv", index=False)
+    model = sheetnet.api.as_model(tmp_path / "m.onnx", tmp_path / "d.csv")
+    assert model.inputs == tuple(features.columns)
+    assert run_cli("score", tmp_path / "m.onnx", tmp_path / "d.csv", "-o", tmp_path / "s.csv")[0] == 0
+    scored = pd.read_csv(tmp_path / "s.csv")
+    assert (scored.predicted == mlp.predict(features)).mean() > 0.99

@@ -280,7 +280,7 @@ def plan_workbook(model: Model, table: dataio.DataTable, settings: TrainSettings
     cases = scoring_sample(len(table.rows), extent.scoring, needed)
     sample = _subset(table, cases)
     words = record_words(record, len(train_rows), run.epochs) if record else ""
-    notes = describe_extent(extent, size, len(cases), len(table.rows), requested, words, bool(metrics))
+    notes = describe_extent(extent, size, len(cases), len(table.rows), requested, words, bool(metrics), continues)
     lines = provenance(model, table, run if record else None, extent, metrics, extra, words)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
     spec = replace(spec, record_note=_record_note(record, extent, run, len(train_rows), words, continues))
@@ -314,7 +314,8 @@ def from_model(model: Model, table: dataio.DataTable | None, settings: TrainSett
     data, a record that continues training from the model's weights with ``settings``."""
     if table is not None and not model.target:
         others = [c for c in table.header if c not in model.inputs]
-        if len(others) == 1:  # a hand-written model without "target": the one other column is it
+        if len(others) == 1 and (len(model.outputs) == 1 or model.task in ("binary", "multiclass")):
+            # a hand-written model without "target": the one other column is it
             model = replace(model, target=(others[0],))
     if table is None:
         spec = make_spec(model, None, (), None, provenance(model, None, None, None, [], list(extra)))

@@ -189,14 +189,15 @@ def record_words(record, n_train: int, total_epochs: int) -> str:
 
 
 def describe_extent(extent: Extent, costs: Costs, sample: int, all_cases: int, requested: Requested = Requested(),
-                    replayed: str = "", metrics_in_guide: bool = False) -> list[str]:
+                    replayed: str = "", metrics_in_guide: bool = False, continues: bool = False) -> list[str]:
     """One line each for what was left out (and whether the flags or the cap chose it), and how to
     record more; ``replayed``: the record in words (see :func:`record_words`)."""
     lines = list(extent.notes)
     if extent.epochs and (extent.epochs < costs.epochs or extent.rows < costs.n_train):
         asked = requested.epochs is not None and (requested.rows is not None or extent.rows >= costs.n_train)
         why = "as the flags asked" if asked else f"to fit {costs.cap:,} formula cells"
-        lines.append(f"the training record replays {replayed} ({why}); the Parameters hold the end of the full run; "
+        held = "the model as given" if continues else "the end of the full run"
+        lines.append(f"the training record replays {replayed} ({why}); the Parameters hold {held}; "
                      "record more with --trace-epochs / --trace-rows and --max-cells")
     if sample < all_cases:
         cases = "the record's cases and evenly spaced others" if extent.epochs else "evenly spaced cases"

@@ -27,7 +27,9 @@ from sheetnet.errors import UsageError
 from sheetnet.onnxio import require_onnx
 
 ACTIVATION_OPS = {"Sigmoid": "sigmoid", "Tanh": "tanh", "Relu": "relu", "Softmax": "softmax"}
-UNCHANGED_OPS = ("Cast", "Identity", "Flatten", "Reshape", "Dropout")
+UNCHANGED_OPS = ("Cast", "CastLike", "Identity", "Flatten", "Reshape", "Dropout")
+JOIN_OPS = ("Concat", "FeatureVectorizer")  # one-column inputs joined into the feature matrix
+SUBGRAPH_OPS = ("If", "Loop", "Scan")  # control flow: what they compute is not on any visible path
 AFFINE_OPS = ("Sub", "Div", "Mul", "Add")
 ENDING_OPS = ("ArgMax", "ZipMap", "ArrayFeatureExtractor", "LabelEncoder", "Gather", "TopK", "Concat", "Greater",
               "GreaterOrEqual", "Less")
@@ -94,15 +96,19 @@ class _Reader:
             self.width = dims[-1].dim_value if dims and dims[-1].dim_value else 0
             return inputs[0].name
         names = {i.name for i in inputs}
-        joins = [n for n in self.graph.node if n.op_type == "Concat" and set(n.input) == names]
+        joins = [n for n in self.graph.node if n.op_type in JOIN_OPS and set(n.input) == names]
         if not joins:
-            raise UsageError(f"the ONNX graph has {len(inputs)} inputs and no Concat joining them; sheetnet reads "
-                             "one input, or one-column inputs joined by a Concat")
+            raise UsageError(f"the ONNX graph has {len(inputs)} inputs ({', '.join(sorted(names)[:5])}) and no Concat "
+                             "or FeatureVectorizer joining them; sheetnet reads one input, or one-column inputs joined "
+                             "into the features")
         self.net.features = tuple(joins[0].input)
         self.width = len(joins[0].input)
         return joins[0].output[0]
 
     def walk(self) -> GraphNetwork:
+        control = next((n for n in self.graph.node if n.op_type in SUBGRAPH_OPS), None)
+        if control is not None:
+            raise _fail(control, "control flow (a graph inside a node)")
         current = self.start()
         while True:
             main = [n for n in self.consumers[current] if not self._is_ending(n, current)]
@@ -114,8 +120,25 @@ class _Reader:
         self._close("identity")
         if not self.net.layers:
             raise UsageError("the ONNX graph has no dense layer (Gemm or MatMul) on its path from input to output")
+        self._outputs_follow(current)
         self._endings()
         return self.net
+
+    def _outputs_follow(self, network_output: str) -> None:
+        """Every output of the graph is the network's output or computed from it (labels, probabilities):
+        an output from elsewhere (a hidden layer, a second head) would be silently left out."""
+        reached, frontier = {network_output}, [network_output]
+        while frontier:
+            for node in self.consumers[frontier.pop()]:
+                for name in node.output:
+                    if name not in reached:
+                        reached.add(name)
+                        frontier.append(name)
+        stray = [o for o in self.outputs if o not in reached]
+        if stray:
+            raise UsageError(f"the ONNX graph's output {stray[0]!r} is not computed from the network's output "
+                             f"{network_output!r} (a hidden layer or a second head); sheetnet reads graphs whose "
+                             "outputs are the network's output and labels or probabilities made from it")
 
     def _is_ending(self, node, current: str) -> bool:
         """After the first dense layer: label and probability bookkeeping that reads the network's output."""
@@ -156,16 +179,29 @@ class _Reader:
         if w.ndim != 2:
             raise _fail(node, f"weights of shape {w.shape}, not a matrix")
         if node.op_type == "MatMul":
+            self._fits(node, w.shape[0])
             return w.T.copy(), np.zeros(w.shape[1])
         if _attribute(node, "transA", 0):
             raise _fail(node, "transA=1 (the data transposed)")
         w = w if _attribute(node, "transB", 0) else w.T
+        self._fits(node, w.shape[1])
         w = _attribute(node, "alpha", 1.0) * w
         bias = np.zeros(w.shape[0])
         if len(node.input) > 2 and node.input[2]:
-            bias = _attribute(node, "beta", 1.0) * np.broadcast_to(self._constant(node, node.input[2]).ravel(),
-                                                                  (w.shape[0],))
+            bias = _attribute(node, "beta", 1.0) * self._broadcast(node, self._constant(node, node.input[2]),
+                                                                   w.shape[0])
         return np.ascontiguousarray(w), np.array(bias, dtype=float)
+
+    def _fits(self, node, fan_in: int) -> None:
+        """A layer's weights take as many values as the data (or the layer before) gives."""
+        width = self._units()
+        if width and fan_in != width:
+            raise _fail(node, f"its weights take {fan_in} values and {width} arrive")
+
+    def _broadcast(self, node, value: np.ndarray, units: int) -> np.ndarray:
+        if value.size not in (1, units):
+            raise _fail(node, f"a bias of {value.size} values for {units} units")
+        return np.broadcast_to(value.ravel(), (units,))
 
     def _affine(self, node, current: str) -> None:
         """Add after a MatMul is its bias; Sub/Div/Mul/Add with a constant before any layer is scaling."""
@@ -173,7 +209,7 @@ class _Reader:
         value = self._constant(node, other).ravel()
         if self.pending is not None and node.op_type == "Add" and self.shape is None:
             weights, bias = self.pending
-            self.pending = (weights, bias + np.broadcast_to(value, bias.shape))
+            self.pending = (weights, bias + self._broadcast(node, value, len(bias)))
             return
         if self.pending is not None and node.op_type in ("Sub", "Mul") and value.size == 1:
             midpoint, steepness = self.shape or (0.0, 1.0)
@@ -203,7 +239,7 @@ class _Reader:
             raise _fail(node, "a cast to a type that is not a float")
         if node.op_type == "Reshape":
             shape = self._constant(node, node.input[1]).astype(int).tolist()
-            if len(shape) != 2 or shape[1] not in (-1, self._units()):
+            if len(shape) != 2 or shape[0] not in (-1, 0) or shape[1] not in (-1, self._units()) or shape == [-1, -1]:
                 raise _fail(node, f"a reshape to {shape}, not to (rows, features)")
 
     def _units(self) -> int:
@@ -230,7 +266,11 @@ class _Reader:
         self.net.layers.append((weights, bias, activation, *(shape or (0.0, 1.0))))
 
     def _finish_scaling(self, width: int) -> None:
-        offset, divisor = (np.broadcast_to(v, (width,)).astype(float) for v in self.scaling)
+        try:
+            offset, divisor = (np.broadcast_to(v, (width,)).astype(float) for v in self.scaling)
+        except ValueError:
+            raise UsageError(f"the ONNX graph's input scaling has {max(v.size for v in self.scaling)} values for "
+                             f"{width} inputs") from None
         if np.all(offset == 0) and np.all(divisor == 1):
             return
         if np.any(divisor == 0) or not np.all(np.isfinite(divisor)) or not np.all(np.isfinite(offset)):

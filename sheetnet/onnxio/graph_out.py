@@ -114,7 +114,10 @@ def model_to_onnx(model, dtype: str = "float64", threshold: float = 0.5, source:
                 "sheetnet.output_names": json.dumps(list(model.outputs)), "sheetnet.task": model.task,
                 "sheetnet.class_labels": json.dumps(list(model.classes)), "sheetnet.target": json.dumps(list(
                     model.target)), "sheetnet.threshold": repr(float(threshold)), "sheetnet.dtype": dtype,
-                "sheetnet.source": source, "sheetnet.source_sha256": source_sha256}
+                "sheetnet.source": source, "sheetnet.source_sha256": source_sha256,
+                "sheetnet.scaling_method": model.scaling.method if model.scaling is not None else "",
+                "sheetnet.training_settings": json.dumps(model.training["settings"])
+                if isinstance(model.training.get("settings"), dict) else ""}
     helper.set_model_props(proto, {k: v for k, v in metadata.items() if v})
     onnx.checker.check_model(proto, full_check=True)
     return proto
