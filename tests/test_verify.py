@@ -3,6 +3,7 @@ round trip and files without cached values, and refuses what it cannot verify.""
 
 from __future__ import annotations
 
+import hashlib
 import json
 import re
 import zipfile
@@ -12,6 +13,7 @@ import numpy as np
 import openpyxl
 import pytest
 
+import sheetnet
 from tests.conftest import write_csv
 from tests.test_workbook import CONFIGS, build
 
@@ -35,6 +37,11 @@ def test_untouched_workbook_verifies(book, run_cli):
     assert data["max_abs_diff"] < 1e-12 and not data["mismatches"] and not data["errors"]
     assert not data["stale_cached"] and data["tolerance"] == 1e-9
     assert "verdict: OK" in out
+    # the report names the exact bytes it speaks for (FIPS 180-4 SHA-256, via hashlib) and when
+    assert data["file_sha256"] == hashlib.sha256(book.read_bytes()).hexdigest()
+    assert data["file_bytes"] == book.stat().st_size and data["verified_at"].endswith("+00:00")
+    extracted = sheetnet.extract_model(book)
+    assert extracted.training["extracted_from_sha256"] == data["file_sha256"]
 
 
 def _edit(book: Path, out: Path, edits) -> Path:

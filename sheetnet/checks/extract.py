@@ -25,6 +25,7 @@ from sheetnet.checks.align import alignment_for, light_entries
 from sheetnet.checks.alignment import Alignment
 from sheetnet.engines.embedded import recalculate
 from sheetnet.errors import WorkbookFormatError
+from sheetnet.files import file_sha256
 from sheetnet.gcpause import paused_gc
 from sheetnet.net.model import Layer, Model
 from sheetnet.xlsx.addresses import Block, Cell, cell_name
@@ -46,7 +47,8 @@ def extract(path: str | Path, after_training: bool = False) -> tuple[Model, str]
         if after_training:
             layers, note = _final_layers(book, layout, inputs, description.original, alignment)
         model = inputs.model(layout.spec, layers=layers)
-        training = {"extracted_from": Path(path).name, "after_training": after_training,
+        training = {"extracted_from": Path(path).name, "extracted_from_sha256": file_sha256(Path(path)),
+                    "after_training": after_training,
                     "threshold": inputs.threshold, "provenance": dict(layout.spec.provenance)}
         return replace(model, training=training), note
 

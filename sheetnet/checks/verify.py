@@ -6,6 +6,7 @@ checks.comparison compares, checks.stability handles records that amplify roundi
 
 from __future__ import annotations
 
+import datetime as dt
 import tempfile
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -26,8 +27,10 @@ from sheetnet.engines.formulaspkg import check_size
 from sheetnet.engines.formulaspkg import recalculate as formulas_recalculate
 from sheetnet.engines.libreoffice import recalculate as lo_recalculate
 from sheetnet.errors import WorkbookFormatError
+from sheetnet.files import file_sha256
 from sheetnet.gcpause import paused_gc
 from sheetnet.parallel import Background
+from sheetnet.version import __version__
 from sheetnet.xlsx.addresses import Cell
 from sheetnet.xlsx.cells import Workbook
 from sheetnet.xlsx.reader import read_workbook
@@ -128,6 +131,9 @@ class VerifyReport:
     signature: SignatureCheck | None = None  # with a key only
     realigned: list[str] = field(default_factory=list)  # structural changes followed (rows inserted...)
     unstable: Unstable | None = None  # record values rounding can move past the tolerance
+    file_sha256: str = ""  # the bytes verified: a report names exactly which file it speaks for
+    file_bytes: int = 0
+    verified_at: str = ""  # UTC, ISO 8601
 
     @property
     def verdict(self) -> str:
@@ -146,7 +152,9 @@ class VerifyReport:
         first = self.comparisons[0].to_dict()
         common = {"file": str(self.path), "verdict": self.verdict, "description_problems": self.description_problems,
                   "realigned": self.realigned, "unstable": None if self.unstable is None else self.unstable.to_dict(),
-                  "signature": None if self.signature is None else self.signature.to_dict()}
+                  "signature": None if self.signature is None else self.signature.to_dict(),
+                  "file_sha256": self.file_sha256, "file_bytes": self.file_bytes, "verified_at": self.verified_at,
+                  "tool": f"sheetnet {__version__}"}
         if len(self.comparisons) == 1:
             return {**first, **common, "ok": self.ok}
         merged = {"ok": self.ok, "engine": "both" if len(self.comparisons) == 2 else "all", **common,
@@ -188,6 +196,8 @@ def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAUL
 
 def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | None) -> VerifyReport:
     progress(0)
+    started = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    digest, size = file_sha256(path), path.stat().st_size
     book = read_returned_workbook(path)
     progress(1)
     layout, description = read_layout(book)
@@ -213,7 +223,8 @@ def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | No
             job.stop()
     progress(VERIFY_STAGES)
     signed = None if key is None else check_signature(book, description.data, key)
-    return VerifyReport(path=Path(path), comparisons=comparisons, unstable=unstable,
+    return VerifyReport(path=Path(path), comparisons=comparisons, unstable=unstable, file_sha256=digest,
+                        file_bytes=size, verified_at=started,
                         description_problems=[str(p) for p in description.problems], signature=signed,
                         realigned=[] if alignment is None else [f"{c.sheet}!{c.cell}: {c.note}" if c.cell else c.note
                                                                 for c in alignment.changes])
