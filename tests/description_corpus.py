@@ -108,6 +108,8 @@ CASES = {
     "case rows out of order": _in_place(lambda d: d["spec"].__setitem__(
         "case_rows", list(range(d["spec"]["n_cases"], 0, -1)))),
     "case rows too few": _set("spec.case_rows", [1, 2]),
+    "input range upside down": _in_place(lambda d: d["spec"].__setitem__(
+        "input_ranges", [[1.0, 0.0]] * len(d["spec"]["inputs"]))),
     "sets length wrong": _in_place(lambda d: d["spec"]["sets"].pop()),
     "epochs out of order": _in_place(lambda d: d["spec"]["record"]["epochs"].reverse()),
     "stored data rows missing": _in_place(lambda d: d["inputs"].__setitem__("data", d["inputs"]["data"][:3])),

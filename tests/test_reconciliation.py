@@ -80,3 +80,37 @@ def test_no_formula_holds_a_model_constant_or_a_class_label(rows, target, extra,
                 if sheet.title != "Scoring" or cell.row > header:  # the confusion matrix's criteria escape wildcards
                     assert not any(f'"{label}"' in text for label in labels), (sheet.title, cell.coordinate, text)
     assert run_cli("verify", book, "--quiet")[0] == 0
+
+
+def _warning_after(book, tmp_path, name, values) -> str:
+    """The calculator's warning as LibreOffice recalculates it with ``values`` typed as inputs."""
+    from tests.bookcheck import libreoffice_values
+
+    workbook = openpyxl.load_workbook(book)
+    sheet = workbook["Calculator"]
+    for col, value in zip("BCD", values, strict=False):
+        sheet[f"{col}4"].value = value
+    edited = tmp_path / f"{name}.xlsx"
+    workbook.save(edited)
+    return libreoffice_values(edited, tmp_path / name).get(("Calculator", "B8")) or ""
+
+
+@pytest.mark.slow
+@pytest.mark.libreoffice
+def test_the_calculator_warns_outside_the_training_range(tmp_path, run_cli):
+    rows = [[a / 10, b / 10, int(a > b)] for a in range(10) for b in range(10)]  # inputs span 0 .. 0.9
+    data = write_csv(tmp_path / "d.csv", ["length", "width", "y"], rows)
+    book = tmp_path / "b.xlsx"
+    assert run_cli("build", data, "--target", "y", "--epochs", "2", "--quiet", "-o", book)[0] == 0
+    assert _value(book, "calculator_warning") in (None, "")
+    assert _names(book)["calculator_inputs"] == ("Calculator", "$B$4:$C$4")
+    assert _warning_after(book, tmp_path, "inside", [0.5, 0.2]) == ""
+    assert _warning_after(book, tmp_path, "outside", [1.5, -3]) == \
+        "length is above its training range; width is below its training range; "
+    assert _warning_after(book, tmp_path, "blank", [None, "12OO"]) == \
+        "length is blank or not a number; width is blank or not a number; "
+    sheet = openpyxl.load_workbook(book)["Calculator"]
+    sheet["B4"].value = 9999
+    sheet.parent.save(tmp_path / "far.xlsx")
+    code, out, _ = run_cli("verify", tmp_path / "far.xlsx", "--engine", "both", "--quiet")
+    assert code in (0, 4), out  # the warning's new text is reproduced; only saved values may be stale

@@ -15,7 +15,7 @@ from sheetnet.book.signing import CellDigests, sign
 from sheetnet.book.sizing import Costs, Extent, Requested, choose, describe_extent, record_words, scoring_sample
 from sheetnet.book.spec import BookInputs, BookSpec, RecordSpec
 from sheetnet.book.write import write_book
-from sheetnet.errors import WorkbookFormatError
+from sheetnet.errors import SheetNetError, WorkbookFormatError
 from sheetnet.files import write_atomic
 from sheetnet.gcpause import paused_gc
 from sheetnet.net import data as dataio
@@ -242,6 +242,18 @@ def _subset(table: dataio.DataTable, cases: np.ndarray) -> dataio.DataTable:
     return replace(table, rows=tuple(table.rows[i] for i in cases), lines=tuple(table.lines[i] for i in cases))
 
 
+def _ranges(model: Model, table: dataio.DataTable, rows: np.ndarray) -> tuple[tuple[float, float], ...]:
+    """Each input's (min, max) over the training rows (all rows for a given model's data), when the
+    data's inputs are all numbers."""
+    if not len(rows):
+        return ()
+    try:
+        x = dataio.feature_matrix(table, model.inputs)[rows]
+    except SheetNetError:
+        return ()
+    return tuple((float(low), float(high)) for low, high in zip(x.min(axis=0), x.max(axis=0), strict=True))
+
+
 def _record_note(record, extent: Extent, run: TrainSettings, n_train: int, words: str, continues: bool) -> str:
     """The banner of a record that is not the whole run behind the Parameters (empty when it is)."""
     if record is None:
@@ -283,7 +295,8 @@ def plan_workbook(model: Model, table: dataio.DataTable, settings: TrainSettings
     notes = describe_extent(extent, size, len(cases), len(table.rows), requested, words, bool(metrics), continues)
     lines = provenance(model, table, run if record else None, extent, metrics, extra, words)
     spec = make_spec(model, sample, tuple(sets[i] for i in cases), _renumbered(record, cases), lines)
-    spec = replace(spec, record_note=_record_note(record, extent, run, len(train_rows), words, continues))
+    spec = replace(spec, record_note=_record_note(record, extent, run, len(train_rows), words, continues),
+                   input_ranges=_ranges(model, table, train_rows))
     if len(cases) < len(table.rows):
         spec = replace(spec, case_rows=tuple(int(c) + 1 for c in cases))
     return Plan(spec, make_inputs(model, sample, spec.target_kind, run, initial, spec.record), tuple(notes))

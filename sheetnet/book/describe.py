@@ -50,6 +50,8 @@ def spec_to_dict(spec: BookSpec) -> dict[str, Any]:
     sampled = {"case_rows": list(spec.case_rows)} if spec.case_rows else {}
     if spec.record_note:
         sampled["record_note"] = spec.record_note
+    if spec.input_ranges:
+        sampled["input_ranges"] = [list(pair) for pair in spec.input_ranges]
     return sampled | {
         "inputs": list(spec.inputs), "outputs": list(spec.outputs), "units": list(spec.units),
         "activations": [a.to_dict() for a in spec.activations], "loss": spec.loss, "task": spec.task,

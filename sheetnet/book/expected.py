@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from sheetnet.book.formula_text import WARNING_NAMES
 from sheetnet.book.spec import BookInputs, BookSpec
 from sheetnet.errors import WorkbookFormatError
 from sheetnet.net import activations as act
@@ -38,6 +39,16 @@ class Numbers:
     scoring: Scored
     calculator: Scored
     record: TrainResult | None
+
+    @property
+    def calculator_warning(self) -> str:
+        """What the calculator's warning formula says for the inputs typed there (see formula_text)."""
+        ranges, x = self.spec.input_ranges, self.inputs.calculator
+        outside = [(name, "below" if v < lo else "above") for name, v, (lo, hi) in
+                   zip(self.spec.inputs, x, ranges, strict=True) if v < lo or v > hi]
+        if len(ranges) > WARNING_NAMES:
+            return f"{len(outside)} input(s) not numbers or outside the training range" if outside else ""
+        return "".join(f"{name} is {side} its training range; " for name, side in outside)
 
     @property
     def record_gap(self) -> float:

@@ -163,6 +163,28 @@ def loss(kind: str, act: Activation, ys: list[str], ts: list[str], y_range: str,
     return LOSS_TEXT[kind](act, ys, ts, y_range, t_range)
 
 
+#: Inputs named one by one in the warning up to this many (a formula stays far below the 8,192-character
+#: limit); beyond, the warning counts them.
+WARNING_NAMES = 20
+
+
+def input_warning(items: list[tuple[str, str, str, str]], raw: str, low: str, high: str) -> str:
+    """A sentence naming each calculator input (name, raw cell, training min, training max) that is not
+    a number or lies outside its training range; empty when none does. Ranges for the count form."""
+    if len(items) > WARNING_NAMES:
+        outside = f"SUMPRODUCT(({raw}<{low})+({raw}>{high})+(1-ISNUMBER({raw})))"
+        return f'=IF({outside}=0,"",{outside}&{text_literal(" input(s) not numbers or outside the training range")})'
+    parts = [f"IF(ISNUMBER({cell}),IF({cell}<{lo},{text_literal(name + WARN_BELOW)},IF({cell}>{hi},"
+             f"{text_literal(name + WARN_ABOVE)},{text_literal('')})),{text_literal(name + WARN_NOT_NUMBER)})"
+             for name, cell, lo, hi in items]
+    return "=" + "&".join(parts)
+
+
+WARN_BELOW = " is below its training range; "
+WARN_ABOVE = " is above its training range; "
+WARN_NOT_NUMBER = " is blank or not a number; "
+
+
 def record_gap(pairs: list[tuple[str, str]]) -> str:
     """The largest |a - b| over pairs of equally shaped ranges (SUMPRODUCT evaluates the array in every
     application, so no array entry is needed)."""

@@ -36,6 +36,13 @@ def _name_meaning(name: str) -> str:
         "learning_rate": "learning rate of every update in the training record",
         "momentum": "momentum of the updates in the training record",
         "l2_penalty": "L2 penalty added to every weight gradient in the training record",
+        "probability_clip": "smallest probability inside LN in the cross-entropy (a constant; do not edit)",
+        "target_cut": "a target at or above it counts as the positive class when accuracy is counted (a constant)",
+        "calculator_inputs": "the Calculator's raw inputs, where a case is typed",
+        "training_min": "each input's smallest value in the training rows",
+        "training_max": "each input's largest value in the training rows",
+        "calculator_warning": "names each Calculator input that is blank, not a number, or outside its training "
+                              "range (empty when none is)",
         "record_gap": "largest |parameter after the record's last step - parameter in use|: 0 (to rounding) when "
                       "the record replays the whole run that produced the Parameters",
     }

@@ -95,6 +95,9 @@ class CalculatorLayout:
     softmax_sum: Cell | None
     predicted: Block | None
     layer_titles: tuple[Cell, ...]
+    training_min: Block | None = None  # each input's range over the training rows (when the data was given)
+    training_max: Block | None = None
+    warning: Cell | None = None  # a sentence naming each input outside its training range
 
 
 @dataclass(frozen=True)
@@ -142,7 +145,12 @@ class BookLayout:
 
     def defined_names(self) -> dict[str, Block]:
         """Workbook-scoped names (never sheet-scoped: not every engine resolves those)."""
-        names: dict[str, Block] = {"scale_offset": self.offset, "scale_divisor": self.divisor}
+        calc = self.calculator
+        names: dict[str, Block] = {"scale_offset": self.offset, "scale_divisor": self.divisor,
+                                   "calculator_inputs": calc.raw}
+        if calc.warning is not None:
+            names.update(training_min=calc.training_min, training_max=calc.training_max,
+                         calculator_warning=_one(calc.warning))
         if self.class_labels is not None:
             names["class_labels"] = self.class_labels
         for name in ("threshold", "probability_clip", "target_cut"):
@@ -197,7 +205,9 @@ def _calculator(spec: BookSpec) -> CalculatorLayout:
         predicted = Block(CALCULATOR, row, 1, 1, 1)
     elif spec.task == "multilabel":
         predicted = Block(CALCULATOR, row, 1, 1, len(spec.outputs))
-    return CalculatorLayout(raw, scaled, tuple(z), tuple(a), smax, ssum, predicted, tuple(titles))
+    ranges = (Block(CALCULATOR, 5, 1, 1, n), Block(CALCULATOR, 6, 1, 1, n), Cell(CALCULATOR, 7, 1)) \
+        if spec.input_ranges else (None, None, None)
+    return CalculatorLayout(raw, scaled, tuple(z), tuple(a), smax, ssum, predicted, tuple(titles), *ranges)
 
 
 def network_columns(spec: BookSpec) -> list[Column]:

@@ -32,7 +32,7 @@ _INPUT_KEYS = ("layers", "offset", "divisor", "data", "threshold", "calculator",
 def read_spec(data: Any) -> tuple[BookSpec | None, list[Problem]]:
     """The spec section, or None and why not."""
     check = Checker("spec")
-    raw = check.obj(data, "spec", _SPEC_KEYS, ("case_rows", "record_note"))
+    raw = check.obj(data, "spec", _SPEC_KEYS, ("case_rows", "record_note", "input_ranges"))
     if raw is None:
         return None, check.problems
     inputs = check.texts(raw["inputs"], "spec.inputs", 1, MAX_COLS - 2, unique=True, max_length=MAX_NAME)
@@ -51,14 +51,15 @@ def read_spec(data: Any) -> tuple[BookSpec | None, list[Problem]]:
     record = None if raw["record"] is None else _record(check, raw["record"], n_cases)
     case_rows = _case_rows(check, raw.get("case_rows", []), n_cases)
     record_note = check.text(raw.get("record_note", ""), "spec.record_note", max_length=MAX_NOTE)
+    ranges = _ranges(check, raw.get("input_ranges"), None if inputs is None else len(inputs))
     parts = (inputs, units, outputs, activations, loss, task, classes, target, kind, n_cases, sets, scaling, provenance,
-             case_rows, record_note)
+             case_rows, record_note, ranges)
     if check.problems or any(p is None for p in parts):
         return None, check.problems
     spec = BookSpec(inputs=inputs, outputs=outputs, units=units, activations=activations, loss=loss, task=task,
                     classes=classes, target=target, target_kind=kind, n_cases=n_cases, sets=sets, record=record,
                     scaling_method=scaling, provenance=provenance, case_rows=case_rows,
-                    record_note=record_note)
+                    record_note=record_note, input_ranges=ranges)
     _consistent(check, spec)
     _fits_the_sheets(check, spec)
     return (None if check.problems else spec), check.problems
@@ -121,6 +122,23 @@ def _case_rows(check: Checker, value: Any, n_cases: int | None) -> tuple[int, ..
                                             f"found {items[bad]!r:.40}")
         return None
     return tuple(items)
+
+
+def _ranges(check: Checker, value: Any, n_inputs: int | None) -> tuple[tuple[float, float], ...] | None:
+    """Each input's (min, max) over the training rows: absent, or one ordered pair of numbers per input."""
+    if value is None:
+        return ()
+    items = check.array(value, "spec.input_ranges", length=n_inputs)
+    if items is None:
+        return None
+    pairs = [check.numbers(item, f"spec.input_ranges[{i}]", 2) for i, item in enumerate(items)]
+    if None in pairs:
+        return None
+    bad = next((i for i, (low, high) in enumerate(pairs) if low > high), None)
+    if bad is not None:
+        check.add(f"spec.input_ranges[{bad}]", "the minimum is above the maximum")
+        return None
+    return tuple((low, high) for low, high in pairs)
 
 
 def _provenance(check: Checker, value: Any) -> tuple[tuple[str, str], ...] | None:

@@ -70,6 +70,7 @@ class BookSpec:
     provenance: tuple[tuple[str, str], ...] = ()
     case_rows: tuple[int, ...] = ()
     record_note: str = ""  # what the record replays when it is not the whole run (a banner on Training setup)
+    input_ranges: tuple[tuple[float, float], ...] = ()  # each input's (min, max) over the training rows
 
     def case_number(self, n: int) -> int:
         """The number a reader sees for the n-th case: its row in the data file."""

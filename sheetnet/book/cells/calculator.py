@@ -38,8 +38,30 @@ def calculator_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
         yield Entry(3, calc.raw.left + i, "input", float(inputs.calculator[i]))
     for i in range(len(spec.inputs)):
         yield scaled_entry(layout, i, calc.raw.cell(0, i), calc.scaled.cell(0, i), numbers.calculator.x[0, i])
+    yield from _warning_entries(layout, numbers)
     yield from _calculator_network(layout, numbers)
     yield from _calculator_prediction(layout, numbers)
+
+
+def _warning_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
+    """Each input's training range, and a live sentence naming the inputs typed outside it."""
+    spec, calc = layout.spec, layout.calculator
+    if calc.warning is None:
+        return
+    for block, label, side in ((calc.training_min, "training min", 0), (calc.training_max, "training max", 1)):
+        yield Entry(block.top, 0, "label", label)
+        for i, pair in enumerate(spec.input_ranges):
+            yield Entry(block.top, block.left + i, "label", float(pair[side]))
+    items = [(name, ref(calc.raw.cell(0, i), CALCULATOR), ref(calc.training_min.cell(0, i), CALCULATOR),
+              ref(calc.training_max.cell(0, i), CALCULATOR)) for i, name in enumerate(spec.inputs)]
+    yield Entry(calc.warning.row, 0, "label", "warning")
+    yield Entry(calc.warning.row, calc.warning.col, "formula",
+                formula_text.input_warning(items, range_ref(calc.raw, CALCULATOR),
+                                           range_ref(calc.training_min, CALCULATOR),
+                                           range_ref(calc.training_max, CALCULATOR)),
+                numbers.calculator_warning,
+                note="Empty while every input is a number inside the range of the training rows; else it names "
+                     "each input outside it: the model has not seen such cases, so its output there is a guess.")
 
 
 def _calculator_network(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
