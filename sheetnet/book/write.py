@@ -44,11 +44,13 @@ STYLE = {
 
 
 class _Sheet(Worksheet):
-    """XlsxWriter's worksheet with three changes, all tested:
+    """XlsxWriter's worksheet with four changes, all tested:
 
     * formulas are written exactly as built (sheetnet's vocabulary has no function that needs the
       future-function prefixes, so XlsxWriter's per-formula rewriting is skipped);
     * numbers are written with ``repr`` (17 significant digits), so every double round-trips;
+    * a formula whose text result is empty is saved as that empty text (XlsxWriter leaves the value
+      untyped, which readers take as "no saved value");
     * :meth:`write_row_xml` appends a whole row of cells at once in constant-memory mode, which
       the large tables use (a row written this way has no notes and no row formatting).
     """
@@ -59,6 +61,11 @@ class _Sheet(Worksheet):
     def _xml_number_element(self, number, attributes=()) -> None:
         attr = "".join(f' {key}="{value}"' for key, value in attributes)
         self.fh.write(f"<c{attr}><v>{_number_text(number)}</v></c>")
+
+    def _xml_formula_element(self, formula, result, attributes=()) -> None:
+        if result == "" and not any(key == "t" for key, _ in attributes):
+            attributes = [*attributes, ("t", "str")]
+        super()._xml_formula_element(formula, result, attributes)
 
     def write_row_xml(self, row: int, first_col: int, last_col: int, cells: str) -> None:
         if self._check_dimensions(row, first_col) or self._check_dimensions(row, last_col):

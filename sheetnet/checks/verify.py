@@ -197,8 +197,8 @@ def verify(path: str | Path, engine: str = "embedded", tolerance: float = DEFAUL
 def _verify(path: Path, engine: str, tolerance: float, progress, key: bytes | None) -> VerifyReport:
     progress(0)
     started = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    book = read_returned_workbook(path)  # refuses what is not a workbook (a folder, a zip bomb) first
     digest, size = file_sha256(path), path.stat().st_size
-    book = read_returned_workbook(path)
     progress(1)
     layout, description = read_layout(book)
     names = ENGINE_SETS.get(engine, (engine,))

@@ -35,7 +35,7 @@ def _unescape(text: str) -> str:
 def _value(kind: str, raw: str | None, inline: str | None, strings: list[str]) -> object:
     if kind == "inlineStr":
         return _unescape(inline or "")
-    if raw is None:
+    if raw is None or (raw == "" and kind != "str"):  # an empty <v/> saves no value, except empty text
         return None
     raw = _unescape(raw)
     if kind == "s":
@@ -114,7 +114,7 @@ def _scan(data: str, start: int, end: int, strings: list[str]):
         elif kind == "" and vtext and vtext[0] != "#":
             values[pos] = float(vtext)
         else:
-            values[pos] = _value(kind, vtext or None, None, strings)
+            values[pos] = _value(kind, vtext, None, strings)
     return formulas, values, shared
 
 

@@ -15,7 +15,7 @@ from sheetnet.book.layout import (
 )
 from sheetnet.book.spec import BookSpec
 from sheetnet.net.activations import PROBABILITY_CLIP, TARGET_CUT
-from sheetnet.xlsx.addresses import Cell, ref
+from sheetnet.xlsx.addresses import Block, Cell, range_ref, ref
 
 
 def _matrix_entries(spec: BookSpec, blocks: ParamBlocks, layers, title: str, role: str,
@@ -73,13 +73,31 @@ def _setting_entries(layout: BookLayout, threshold: float) -> Iterator[Entry]:
             yield Entry(cell.row, cell.col, role, float(value))
 
 
+#: Up to this many parameter rows, record_gap compares row by row (each reference stays whole when a row
+#: is inserted inside a block, as every other formula's do); beyond, it compares the named blocks.
+GAP_ROWS = 60
+
+
+def _gap_pairs(layout: BookLayout) -> list[tuple[str, str]]:
+    """Pairs of equally shaped ranges: after the record's last step, and in use."""
+    spec, final, now = layout.spec, layout.final, layout.parameters
+    if sum(spec.units) > GAP_ROWS:
+        return [(f"final_{kind}_{k + 1}", f"{kind}_{k + 1}") for k in range(spec.n_layers) for kind in ("W", "b")]
+    pairs = []
+    for k in range(spec.n_layers):
+        for j in range(spec.units[k]):
+            for a, b in ((final.weights[k], now.weights[k]), (final.bias[k], now.bias[k])):
+                pairs.append((range_ref(Block(a.sheet, a.top + j, a.left, 1, a.ncols), SETUP, absolute=True),
+                              range_ref(Block(b.sheet, b.top + j, b.left, 1, b.ncols), SETUP, absolute=True)))
+    return pairs
+
+
 def _gap_entries(layout: BookLayout, numbers: Numbers) -> Iterator[Entry]:
     """record_gap: how far the record's end is from the parameters in use, and, when the record is not
     the whole run, a banner saying why it is not 0."""
     spec, cell = layout.spec, layout.record_gap
-    pairs = [(f"final_{kind}_{k + 1}", f"{kind}_{k + 1}") for k in range(spec.n_layers) for kind in ("W", "b")]
     yield Entry(cell.row, 0, "label", "record gap")
-    yield Entry(cell.row, cell.col, "formula", formula_text.record_gap(pairs), numbers.record_gap,
+    yield Entry(cell.row, cell.col, "formula", formula_text.record_gap(_gap_pairs(layout)), numbers.record_gap,
                 note="Largest |parameter after the record's last step - parameter in use (Parameters sheet)|: 0, up "
                      "to rounding, when the record replays the whole run that produced the Parameters.")
     if spec.record_note:
