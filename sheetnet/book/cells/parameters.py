@@ -66,8 +66,8 @@ def _setting_entries(layout: BookLayout, threshold: float) -> Iterator[Entry]:
     constants of the loss and of the accuracy (written once here, never inside a formula)."""
     for cell, label, value, role in (
             (layout.threshold, "decision threshold", threshold, "input"),
-            (layout.probability_clip, "probability clip (inside LN)", PROBABILITY_CLIP, "label"),
-            (layout.target_cut, "target cut (a target at or above it counts as 1)", TARGET_CUT, "label")):
+            (layout.probability_clip, "probability clip", PROBABILITY_CLIP, "label"),
+            (layout.target_cut, "target cut", TARGET_CUT, "label")):
         if cell is not None:
             yield Entry(cell.row, 0, "label", label)
             yield Entry(cell.row, cell.col, role, float(value))
