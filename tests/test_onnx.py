@@ -356,6 +356,9 @@ def _misread_if_accepted(kind: str) -> onnx.ModelProto:
     if kind == "weights of the wrong shape":
         return _small([helper.make_node("Gemm", ["x", "w5", "b"], ["y"], name="/fc1/Gemm")],
                       initializers=[_tensor("w5", np.ones((5, 4))), b])
+    if kind == "scale after the output":  # a temperature on logits: not a sigmoid's steepness
+        return _small([dense, helper.make_node("Mul", ["h", "temp"], ["y"], name="/temperature/Mul")],
+                      initializers=[w, _tensor("temp", [0.5])])
     shape = numpy_helper.from_array(np.array([1, -1], dtype=np.int64), "shape")
     return _small([dense, helper.make_node("Reshape", ["h", "shape"], ["y"], name="/flat/Reshape")],
                   initializers=[w, shape])
@@ -363,7 +366,8 @@ def _misread_if_accepted(kind: str) -> onnx.ModelProto:
 
 @pytest.mark.parametrize("kind, says", [("if", "'/If' (If)"), ("second head", "output 'h' is not computed from"),
                                         ("weights of the wrong shape", "'/fc1/Gemm' (Gemm)"),
-                                        ("reshape of the rows", "'/flat/Reshape' (Reshape)")])
+                                        ("reshape of the rows", "'/flat/Reshape' (Reshape)"),
+                                        ("scale after the output", "'/temperature/Mul' (Mul)")])
 def test_graphs_that_would_be_misread_are_refused(kind, says, tmp_path, run_cli):
     onnx.save(_misread_if_accepted(kind), tmp_path / "g.onnx")
     (tmp_path / "d.csv").write_text("a,b,c\n1,2,3\n4,5,6\n")

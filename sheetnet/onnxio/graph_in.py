@@ -82,6 +82,7 @@ class _Reader:
         self.scaling = (np.zeros(1), np.ones(1))  # scaled = (x - offset) / divisor, before the first layer
         self.pending = None  # (weights, bias) of a layer whose activation is not read yet
         self.shape = None  # (midpoint, steepness) written as Sub and Mul before a Sigmoid
+        self.shape_node = None  # the last node that wrote them, named if no Sigmoid follows
 
     def start(self) -> str:
         inputs = [i for i in self.graph.input if i.name not in self.constants]
@@ -214,6 +215,7 @@ class _Reader:
         if self.pending is not None and node.op_type in ("Sub", "Mul") and value.size == 1:
             midpoint, steepness = self.shape or (0.0, 1.0)
             self.shape = (float(value[0]), steepness) if node.op_type == "Sub" else (midpoint, float(value[0]))
+            self.shape_node = node
             return
         if self.net.layers or self.pending is not None:
             raise _fail(node, "arithmetic between layers that is not a bias")
@@ -256,8 +258,8 @@ class _Reader:
         weights, bias = self.pending
         self.pending, shape, self.shape = None, self.shape, None
         if shape is not None and activation != "sigmoid":
-            raise UsageError(f"a shift or scale of the weighted sums before {activation} (sheetnet reads one only "
-                             "before a Sigmoid: its midpoint and steepness)")
+            raise _fail(self.shape_node, f"a shift or scale of the weighted sums followed by {activation}, not by a "
+                                         "Sigmoid (whose midpoint and steepness it would be)")
         if not self.net.layers:
             self._finish_scaling(weights.shape[1])
         elif weights.shape[1] != self.net.layers[-1][0].shape[0]:
