@@ -121,10 +121,6 @@ def as_model(model: Model | str | Path, data=None, inputs=None, classes=None, ta
     return load_model(model) if isinstance(model, str | Path) else model
 
 
-def _columns(value) -> tuple[str, ...]:
-    return () if value is None else (value,) if isinstance(value, str) else tuple(value)
-
-
 #: The training settings in words (notes name the ones given).
 SETTING_WORDS = {"learning_rate": "learning rate", "epochs": "epochs", "batch_size": "batch size",
                  "shuffle": "shuffle", "seed": "seed", "momentum": "momentum", "l2": "L2 penalty"}
@@ -170,8 +166,8 @@ def train(data, target=None, holdout: float | str = "auto", init: Model | str | 
     run = settings(**_options(options, SETTINGS))
     arch = architecture(**_options(options, ARCHITECTURE))
     start = None if init is None else as_model(init)
-    return fit(as_table(data), _columns(target), run, arch, start=start, holdout=holdout,
-               inputs=_columns(inputs) or None, progress=progress)
+    return fit(as_table(data), dataio.column_names(target), run, arch, start=start, holdout=holdout,
+               inputs=dataio.column_names(inputs) or None, progress=progress)
 
 
 def score(model: Model | str | Path, data, threshold: float = 0.5, keep_other_columns: bool = True) -> pd.DataFrame:
@@ -207,8 +203,8 @@ def plan_from_model(model: Model | str | Path, data=None, target=None, requested
     table = None if data is None else as_table(data)
     model = as_model(model, table, inputs, classes, target)
     if target is not None:
-        _check_target(model, table, _columns(target), source)
-        model = replace(model, target=_columns(target))
+        _check_target(model, table, dataio.column_names(target), source)
+        model = replace(model, target=dataio.column_names(target))
     stored = stored_settings(model, source)
     run = _over(stored or TrainSettings(), _options(setting_overrides, SETTINGS)) if table is not None else None
     plan = from_model(model, table, run, requested, max_cells)
@@ -331,7 +327,7 @@ def compare_learning_rates(data, target, rates, holdout: float | str = "auto", i
     run = settings(**_options(options, SETTINGS))
     arch = architecture(**_options(options, ARCHITECTURE))
     start = None if init is None else as_model(init)
-    return compare_rates(as_table(data), _columns(target), list(rates), run, arch, holdout, start)
+    return compare_rates(as_table(data), dataio.column_names(target), list(rates), run, arch, holdout, start)
 
 
 def rates_verdict(runs: list[RateRun]) -> str:

@@ -282,6 +282,13 @@ def _check_classes(table: DataTable, column: str, task: str, classes: tuple[str,
                         f"not know: {some(sorted(unknown))}")
 
 
+def column_names(value) -> tuple[str, ...]:
+    """One column name, several, or none (None) as a tuple of names: how the API and flags give columns."""
+    if value is None:
+        return ()
+    return (value,) if isinstance(value, str) else tuple(str(v) for v in value)
+
+
 def some(names, shown: int = 10) -> str:
     """The first names of a list, and how many more there are (an error stays one readable line)."""
     names = list(names)

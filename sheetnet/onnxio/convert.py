@@ -54,9 +54,9 @@ def from_onnx(source, inputs=None, classes=None, target=None, data: dataio.DataT
     except UsageError as exc:
         raise UsageError(f"{where}: {exc}") from None
     n_in, n_out = net.layers[0][0].shape[1], net.layers[-1][0].shape[0]
-    features = _features(net, n_in, _names(inputs), _names(target), data)
-    task, labels = _task(net, n_out, _names(classes))
-    targets = _names(target) or tuple(json.loads(net.metadata.get("sheetnet.target", "[]")))
+    features = _features(net, n_in, dataio.column_names(inputs), dataio.column_names(target), data)
+    task, labels = _task(net, n_out, dataio.column_names(classes))
+    targets = dataio.column_names(target) or tuple(json.loads(net.metadata.get("sheetnet.target", "[]")))
     outputs = _outputs(task, labels, targets, n_out)
     if task == "regression" and targets and len(targets) != n_out:
         raise UsageError(f"{where}: the graph ends in {n_out} outputs with no Sigmoid or Softmax (read as a "
@@ -79,12 +79,6 @@ def from_onnx(source, inputs=None, classes=None, target=None, data: dataio.DataT
         return model_from_dict(model.to_dict())
     except ModelFileError as exc:
         raise UsageError(f"{where}: {exc}") from None
-
-
-def _names(value) -> tuple[str, ...]:
-    if value is None:
-        return ()
-    return (value,) if isinstance(value, str) else tuple(str(v) for v in value)
 
 
 def _features(net: GraphNetwork, n_in: int, given: tuple[str, ...], target: tuple[str, ...],
