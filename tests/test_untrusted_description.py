@@ -33,18 +33,20 @@ TIME_LIMIT_S = 30
 
 _MEASURE = """
 import json, resource, subprocess, sys
+commands, limit = json.loads(sys.argv[1]), float(sys.argv[2])
+children = [subprocess.Popen([sys.executable, "-m", "sheetnet", *command], stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, text=True) for command in commands]
 results = []
-for command in json.loads(sys.argv[1]):
-    done = subprocess.run([sys.executable, "-m", "sheetnet", *command], capture_output=True, text=True,
-                          timeout=float(sys.argv[2]))
-    results.append({"code": done.returncode, "out": done.stdout, "err": done.stderr})
+for child in children:
+    out, err = child.communicate(timeout=limit)
+    results.append({"code": child.returncode, "out": out, "err": err})
 print(json.dumps({"results": results, "peak_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024}))
 """
 
 
 def run_measured(commands: list[list[str]]) -> tuple[list[dict], float]:
-    """Run sheetnet commands one after another in child processes: their results and the largest
-    peak resident memory among them (MB)."""
+    """Run sheetnet commands side by side in child processes (they read the same file and write
+    different ones): their results and the largest peak resident memory among them (MB)."""
     done = subprocess.run([sys.executable, "-c", _MEASURE, json.dumps(commands), str(TIME_LIMIT_S)],
                           capture_output=True, text=True, timeout=TIME_LIMIT_S * len(commands) + 30)
     assert done.returncode == 0, done.stderr[-2000:]
